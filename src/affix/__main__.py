@@ -1,0 +1,5 @@
+import sys
+
+from affix.workflow.cli import main
+
+sys.exit(main())

@@ -1,0 +1,137 @@
+"""The integer arithmetic every stage agrees on, and its exact reference evaluator.
+
+For each output i, with inputs y_j first clamped to their declared box
+[lo_j, hi_j]:
+
+    acc_i = c_i + sum_j a_ij * y_j                 (signed, acc_bits wide)
+    out_i = clamp(floor((acc_i + r_i) / 2**s_i))   to the output type's limits
+
+where r_i = 2**(s_i - 1) for rounding "half-up" (round to nearest, ties
+toward +infinity; r_i = 0 when s_i = 0) and r_i = 0 for "floor".  The
+physical value is out_i * output_lsb_i.
+
+The quantiser proves |acc_i + r_i| stays inside the accumulator over the whole
+box; the evaluator here is exact whatever the numbers, so it is the reference
+that generated code is checked against bit for bit.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+ROUNDINGS = ("half-up", "floor")
+OUTPUT_CTYPES = {
+    "int16_t": (-(2**15), 2**15 - 1),
+    "int32_t": (-(2**31), 2**31 - 1),
+}
+INPUT_CTYPES = {  # in the order the emitter prefers them: smallest first
+    "int8_t": (-(2**7), 2**7 - 1),
+    "uint8_t": (0, 2**8 - 1),
+    "int16_t": (-(2**15), 2**15 - 1),
+    "uint16_t": (0, 2**16 - 1),
+    "int32_t": (-(2**31), 2**31 - 1),
+    "uint32_t": (0, 2**32 - 1),
+}
+_FLOAT64_EXACT = 2**53  # every integer below this is exact in a double
+
+
+def rounding_constant(shift: int, rounding: str) -> int:
+    if rounding == "half-up":
+        return 1 << (shift - 1) if shift > 0 else 0
+    if rounding == "floor":
+        return 0
+    raise ValueError(f"unknown rounding '{rounding}' (choose from {', '.join(ROUNDINGS)})")
+
+
+@dataclass(frozen=True)
+class IntegerEstimator:
+    """The integer part of a plan: exactly what generated code computes."""
+
+    coefficients: tuple[tuple[int, ...], ...]  # (n_outputs, n_inputs)
+    offsets: tuple[int, ...]  # c_i, at accumulator scale
+    shifts: tuple[int, ...]
+    input_ranges: tuple[tuple[int, int], ...]  # (lo_j, hi_j), inclusive
+    output_ctype: str
+    rounding: str = "half-up"
+    acc_bits: int = 32
+
+    def __post_init__(self):
+        object.__setattr__(self, "coefficients", tuple(tuple(int(a) for a in row) for row in self.coefficients))
+        object.__setattr__(self, "offsets", tuple(int(c) for c in self.offsets))
+        object.__setattr__(self, "shifts", tuple(int(s) for s in self.shifts))
+        object.__setattr__(self, "input_ranges", tuple((int(lo), int(hi)) for lo, hi in self.input_ranges))
+        n, m = len(self.coefficients), len(self.input_ranges)
+        if any(len(row) != m for row in self.coefficients) or len(self.offsets) != n or len(self.shifts) != n:
+            raise ValueError("coefficients, offsets, shifts and input_ranges disagree in shape")
+        if self.output_ctype not in OUTPUT_CTYPES:
+            raise ValueError(f"unknown output type '{self.output_ctype}'")
+        if any(s < 0 for s in self.shifts):
+            raise ValueError("shifts must be non-negative")
+        for s in self.shifts:
+            rounding_constant(s, self.rounding)
+
+    @classmethod
+    def from_mapping(cls, data) -> "IntegerEstimator":
+        """Build from a plan or manifest dict (both carry these keys)."""
+        return cls(
+            coefficients=data["coefficients"],
+            offsets=data["offsets"],
+            shifts=data["shifts"],
+            input_ranges=data["input_ranges"],
+            output_ctype=data["output_ctype"],
+            rounding=data["rounding"],
+            acc_bits=data["acc_bits"],
+        )
+
+    @property
+    def n_inputs(self) -> int:
+        return len(self.input_ranges)
+
+    @property
+    def n_outputs(self) -> int:
+        return len(self.coefficients)
+
+    def accumulator_bounds(self) -> list[int]:
+        """Worst case |c_i| + sum_j |a_ij| * max(|lo_j|, |hi_j|) + r_i over the box, per output."""
+        reach = [max(abs(lo), abs(hi)) for lo, hi in self.input_ranges]
+        return [
+            abs(c) + sum(abs(a) * r for a, r in zip(row, reach)) + rounding_constant(s, self.rounding)
+            for row, c, s in zip(self.coefficients, self.offsets, self.shifts)
+        ]
+
+    def evaluate(self, y) -> np.ndarray:
+        """Integer outputs for rows y of shape (k, n_inputs) (or one vector), as int64.
+
+        Exact: float64 BLAS when every partial sum stays below 2**53 (all
+        partial sums are integers bounded by the box bound, so no rounding can
+        occur in any summation order), int64 when below 2**63, Python
+        integers otherwise.
+        """
+        y = np.asarray(y)
+        single = y.ndim == 1
+        y = np.atleast_2d(y)
+        if y.shape[1] != self.n_inputs:
+            raise ValueError(f"expected {self.n_inputs} inputs per vector, got {y.shape[1]}")
+        if not np.issubdtype(y.dtype, np.integer):
+            raise ValueError("inputs must be integers")
+        lo = np.array([r[0] for r in self.input_ranges], dtype=np.int64)
+        hi = np.array([r[1] for r in self.input_ranges], dtype=np.int64)
+        yc = np.clip(y.astype(np.int64), lo, hi)
+        bound = max(self.accumulator_bounds(), default=0)
+        half = np.array([rounding_constant(s, self.rounding) for s in self.shifts], dtype=object)
+        if bound < _FLOAT64_EXACT:
+            acc = (yc.astype(np.float64) @ np.array(self.coefficients, dtype=np.float64).T).astype(np.int64)
+            acc += np.array(self.offsets, dtype=np.int64) + half.astype(np.int64)
+        elif bound < 2**63:
+            acc = yc @ np.array(self.coefficients, dtype=np.int64).T
+            acc += np.array(self.offsets, dtype=np.int64) + half.astype(np.int64)
+        else:
+            acc = yc.astype(object) @ np.array(self.coefficients, dtype=object).T
+            acc = acc + np.array(self.offsets, dtype=object) + half
+        out = np.empty(acc.shape, dtype=np.int64)
+        lo_out, hi_out = OUTPUT_CTYPES[self.output_ctype]
+        for i, s in enumerate(self.shifts):
+            column = acc[:, i] >> s  # arithmetic shift: floor division by 2**s, for int64 and int alike
+            out[:, i] = np.clip(column, lo_out, hi_out).astype(np.int64)
+        return out[0] if single else out

@@ -1,0 +1,1 @@
+"""Emit: C and MicroPython source from a plan, rendered from codegen_templates/."""

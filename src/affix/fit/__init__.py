@@ -1,0 +1,1 @@
+"""Fit: gain and offset of the linear least-squares estimator from the statistics."""

@@ -1,0 +1,1 @@
+"""Intake: read calibration data (CSV, .npy, .npz) in bounded-memory chunks."""

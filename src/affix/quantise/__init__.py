@@ -1,0 +1,1 @@
+"""Quantise: the fixed-point plan, its overflow proof and accuracy budget."""

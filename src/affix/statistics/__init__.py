@@ -1,0 +1,1 @@
+"""Statistics: mergeable sufficient statistics of calibration data (one pass, any chunk order)."""

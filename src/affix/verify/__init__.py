@@ -1,0 +1,1 @@
+"""Verify: build and run emitted code, compare bit for bit with the integer reference."""

@@ -1,0 +1,1 @@
+"""Workflow: the command line on top of the stages."""

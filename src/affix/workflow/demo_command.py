@@ -1,0 +1,5 @@
+"""affix demo (being built)."""
+
+
+def register(sub):
+    sub.add_parser("demo", help="(being built)")

@@ -1,0 +1,5 @@
+"""affix fit (being built)."""
+
+
+def register(sub):
+    sub.add_parser("fit", help="(being built)")

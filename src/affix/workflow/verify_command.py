@@ -1,0 +1,5 @@
+"""affix verify (being built)."""
+
+
+def register(sub):
+    sub.add_parser("verify", help="(being built)")

@@ -1,0 +1,44 @@
+"""Shared test helpers.
+
+``require(tool)`` is how a test asks for an external program: locally a
+missing one skips with the reason printed (pytest runs with -ra); in CI
+(CI=true) it fails, because CI installs everything and a silent skip would
+hide a missing install step.
+"""
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+IN_CI = os.environ.get("CI", "").lower() in ("1", "true", "yes")
+
+
+def require(tool: str) -> str:
+    """Path of an executable on PATH (or beside this Python), else skip locally / fail in CI."""
+    path = shutil.which(tool) or shutil.which(tool, path=str(Path(sys.executable).parent))
+    if path:
+        return path
+    message = f"'{tool}' is not installed (install it, or see .ci/run)"
+    if IN_CI:
+        pytest.fail(message)
+    pytest.skip(message)
+
+
+def run_affix(*args, cwd=None) -> subprocess.CompletedProcess:
+    """Run the real CLI in a child process, as a user would."""
+    return subprocess.run(
+        [sys.executable, "-m", "affix", *map(str, args)],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+    )
+
+
+@pytest.fixture
+def affix_cli():
+    return run_affix
