@@ -1,0 +1,1 @@
+"""jinja2 templates for every emitted language (packaged as affix.codegen_templates)."""

@@ -1,0 +1,158 @@
+"""Everything a template of either language needs, as plain names and numbers.
+
+Templates decide all target syntax; this module only works out facts about
+the plan: ranges, which clamps and saturations can trigger, the shift that is
+actually applied, Q formats, accuracy figures and a few known vectors for the
+self-test, computed by the integer reference at emit time.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, rounding_constant
+from affix.errors import UsageError
+from affix.float32_arithmetic import Float32Estimator
+
+CAUTION = (
+    "This estimator is only as valid as the calibration data's coverage of the operating range; "
+    "outside that range its outputs are extrapolations.",
+    "A sensor whose output drives motion, dosing, heating or any safety function needs validation "
+    "under the applicable functional-safety standards and local codes, by qualified people.",
+    "The checks made by affix cover the arithmetic, not the sensor.",
+)
+
+_ACCURACY_FIELDS = ("float_rms", "predicted_rms_deviation", "predicted_total_rms", "worst_case_deviation")
+
+
+def input_ctype(input_ranges) -> str:
+    """The smallest standard type that holds every declared input range."""
+    for ctype, (lo, hi) in INPUT_CTYPES.items():
+        if all(lo <= r_lo and r_hi <= hi for r_lo, r_hi in input_ranges):
+            return ctype
+    raise UsageError("an input range does not fit any of " + ", ".join(INPUT_CTYPES), "plan input_ranges")
+
+
+def build_context(plan, name: str, *, arith: str = "int", style: str = "table") -> dict:
+    """The template context for ``plan`` emitted as ``name``."""
+    estimator = plan.integer_estimator()
+    in_ctype = input_ctype(plan.input_ranges)
+    type_lo, type_hi = INPUT_CTYPES[in_ctype]
+    out_lo, out_hi = OUTPUT_CTYPES[plan.output_ctype]
+    acc_limit = 2 ** (plan.acc_bits - 1)
+    for column, (lo, hi) in zip(plan.inputs, plan.input_ranges):
+        if hi >= acc_limit:  # the widening conversion to the accumulator would not be value-preserving
+            raise UsageError(f"input '{column}' reaches {hi}, beyond the {plan.acc_bits}-bit accumulator", "plan")
+    inputs = [
+        {
+            "index": j,
+            "name": column,
+            "lo": lo,
+            "hi": hi,
+            "clamp_lo": lo > type_lo,  # a test against the type's own limit could never trigger
+            "clamp_hi": hi < type_hi,
+            "lsb": None if plan.input_lsb is None else plan.input_lsb[j],
+        }
+        for j, (column, (lo, hi)) in enumerate(zip(plan.inputs, plan.input_ranges))
+    ]
+    outputs = []
+    for i, column in enumerate(plan.outputs):
+        row = plan.coefficients[i]
+        shift = plan.shifts[i]
+        round_const = rounding_constant(shift, plan.rounding)
+        acc_min = plan.offsets[i] + round_const + sum(min(a * lo, a * hi) for a, (lo, hi) in zip(row, plan.input_ranges))
+        acc_max = plan.offsets[i] + round_const + sum(max(a * lo, a * hi) for a, (lo, hi) in zip(row, plan.input_ranges))
+        # |acc + r| < 2**(acc_bits-1) over the box, so any shift >= acc_bits-1
+        # floors to -1 or 0 exactly like acc_bits-1 does, and a shift by the
+        # full width (undefined in C) is never needed.
+        applied = min(shift, plan.acc_bits - 1)
+        q_min, q_max = acc_min >> shift, acc_max >> shift
+        frac_bits = _power_of_two_exponent(plan.output_lsb[i])
+        outputs.append(
+            {
+                "index": i,
+                "name": column,
+                "coefficients": list(row),
+                "offset": plan.offsets[i],
+                "shift": shift,
+                "applied_shift": applied,
+                "round": round_const,
+                "acc_min": acc_min,
+                "acc_max": acc_max,
+                "acc_bound": estimator.accumulator_bounds()[i],
+                "q_min": q_min,
+                "q_max": q_max,
+                "saturate_lo": q_min < out_lo,
+                "saturate_hi": q_max > out_hi,
+                "lsb": plan.output_lsb[i],
+                "acc_lsb": plan.output_lsb[i] / 2**shift,
+                "frac_bits": frac_bits,  # Qm.n where the lsb is 2**-n, else None
+                "gain": list(plan.gain[i]),
+                "float_offset": plan.offset[i],
+                **{key: _figure(plan, key, i) for key in _ACCURACY_FIELDS},
+            }
+        )
+    return {
+        "name": name,
+        "function": f"{name}_estimate",
+        "arith": arith,
+        "style": style,
+        "n_inputs": len(inputs),
+        "n_outputs": len(outputs),
+        "inputs": inputs,
+        "outputs": outputs,
+        "input_ctype": in_ctype,
+        "input_type_bits": _bits(in_ctype),
+        "input_type_min": type_lo,
+        "input_type_max": type_hi,
+        "input_signed": type_lo < 0,
+        "output_ctype": plan.output_ctype,
+        "output_bits": _bits(plan.output_ctype),
+        "output_min": out_lo,
+        "output_max": out_hi,
+        "acc_bits": plan.acc_bits,
+        "coef_bits": plan.coef_bits,
+        "rounding": plan.rounding,
+        "accumulator_bound": max(o["acc_bound"] for o in outputs),
+        "model_sha256": plan.model_sha256,
+        "plan_sha256": plan.sha256,
+        "tool_version": plan.tool_version,
+        "caution": list(CAUTION),
+        "check_vectors": check_vectors(plan, in_ctype, arith),
+    }
+
+
+def check_vectors(plan, in_ctype: str, arith: str) -> list[dict]:
+    """A few known vectors for the emitted self-test: two opposite corners,
+    the centre, a point beyond the box (to exercise clamping) and random
+    points, with the outputs the reference computes for them."""
+    lo = np.array([r[0] for r in plan.input_ranges], dtype=np.int64)
+    hi = np.array([r[1] for r in plan.input_ranges], dtype=np.int64)
+    type_lo, type_hi = INPUT_CTYPES[in_ctype]
+    rng = np.random.default_rng(int(plan.sha256[:8], 16))  # same plan, same vectors
+    alternating = np.where(np.arange(len(lo)) % 2 == 0, lo, hi)
+    beyond = np.clip(np.where(np.arange(len(lo)) % 2 == 0, lo - 1, hi + 1), type_lo, type_hi)
+    rows = [lo, hi, alternating, lo + (hi - lo) // 2, beyond]
+    rows += [rng.integers(lo, hi, endpoint=True) for _ in range(3)]
+    y = np.array(rows, dtype=np.int64)
+    if arith == "float32":
+        reference = Float32Estimator(plan.gain, plan.offset, plan.input_ranges).evaluate(y)
+        expected = [[float(v) for v in out] for out in reference]
+    else:
+        expected = plan.integer_estimator().evaluate(y).tolist()
+    return [{"inputs": row.tolist(), "expected": out} for row, out in zip(y, expected)]
+
+
+def _bits(ctype: str) -> int:
+    return int("".join(ch for ch in ctype if ch.isdigit()))
+
+
+def _power_of_two_exponent(lsb: float) -> int | None:
+    mantissa, exponent = math.frexp(lsb)
+    return 1 - exponent if mantissa == 0.5 else None
+
+
+def _figure(plan, key: str, i: int):
+    values = getattr(plan, key)
+    return None if values is None else float(values[i])

@@ -1,0 +1,108 @@
+"""Emit a plan: check the names, render each language, write the files and the manifest.
+
+The manifest (``NAME.manifest.json``) is the machine-readable description of
+what was emitted: verification and CI rebuild the integer reference from it
+alone, never from the plan.
+"""
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+
+from affix.emit.context import input_ctype
+from affix.emit.names import check_names
+from affix.errors import UsageError
+
+MANIFEST_FORMAT = "affix.manifest/1"
+LANGUAGES = ("c", "micropython")
+ARITHS = ("int", "float32")
+STYLES = ("table", "unrolled")
+
+
+def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str = "table") -> dict:
+    """Write the emitted files for ``lang`` ("c", "micropython" or "all") and
+    the manifest into ``out_dir``; return the manifest.
+
+    Everything is rendered and checked before the first file is written, and
+    each file is written atomically, so an error leaves ``out_dir`` as it was.
+    """
+    languages = LANGUAGES if lang == "all" else (lang,)
+    _check_choice(lang, LANGUAGES + ("all",), "--lang")
+    _check_choice(arith, ARITHS, "--arith")
+    _check_choice(style, STYLES, "--style")
+    if arith == "float32" and "micropython" in languages:
+        raise UsageError("float32 arithmetic is a C target only (MicroPython output is integer)", "--arith")
+    check_names(name, plan.inputs, plan.outputs)
+
+    rendered: dict[str, dict[str, str]] = {}
+    notes: list[str] = []
+    if "c" in languages:
+        from affix.emit.c import render_c
+
+        rendered["c"] = render_c(plan, name, arith=arith, style=style)
+    if "micropython" in languages:
+        from affix.emit.micropython import notes as micropython_notes, render_micropython
+
+        rendered["micropython"] = render_micropython(plan, name)
+        notes += micropython_notes(plan)
+
+    manifest = manifest_for(plan, name, arith, style, {k: sorted(v) for k, v in rendered.items()}, notes)
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    for files in rendered.values():
+        for filename, text in files.items():
+            write_atomically(out_dir / filename, text)
+    write_atomically(out_dir / f"{name}.manifest.json", json.dumps(manifest, indent=2, allow_nan=False) + "\n")
+    return manifest
+
+
+def manifest_for(plan, name: str, arith: str, style: str, files: dict, notes: list[str]) -> dict:
+    manifest = {
+        "format": MANIFEST_FORMAT,
+        "name": name,
+        "function": f"{name}_estimate",
+        "files": files,
+        "arith": arith,
+        "style": style,
+        "input_ctype": input_ctype(plan.input_ranges),
+        # The plan's integer type even for float32 code (which returns float):
+        # the integer reference is always rebuildable from the manifest.
+        "output_ctype": plan.output_ctype,
+        "inputs": list(plan.inputs),
+        "input_ranges": [list(r) for r in plan.input_ranges],
+        "outputs": list(plan.outputs),
+        "output_lsb": list(plan.output_lsb),
+        "coefficients": [list(row) for row in plan.coefficients],
+        "offsets": list(plan.offsets),
+        "shifts": list(plan.shifts),
+        "acc_bits": plan.acc_bits,
+        "coef_bits": plan.coef_bits,
+        "rounding": plan.rounding,
+        "plan_sha256": plan.sha256,
+        "model_sha256": plan.model_sha256,
+        "tool_version": plan.tool_version,
+        "notes": notes,
+    }
+    if arith == "float32":
+        manifest["float_gain"] = [list(row) for row in plan.gain]
+        manifest["float_offset"] = list(plan.offset)
+    return manifest
+
+
+def write_atomically(path: Path, text: str) -> None:
+    """Write via a temporary file in the same folder and rename it into place."""
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as handle:
+            handle.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        os.unlink(tmp)
+        raise
+
+
+def _check_choice(value: str, choices, option: str) -> None:
+    if value not in choices:
+        raise UsageError(f"'{value}' is not one of {', '.join(choices)}", option)
