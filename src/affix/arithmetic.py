@@ -44,6 +44,36 @@ def rounding_constant(shift: int, rounding: str) -> int:
     raise ValueError(f"unknown rounding '{rounding}' (choose from {', '.join(ROUNDINGS)})")
 
 
+def input_ctype(input_ranges) -> str | None:
+    """The smallest type of INPUT_CTYPES that holds every range of the box, or None.
+
+    The emitted code passes all inputs in one type, so a box mixing signed and
+    unsigned ranges takes the smallest signed type holding both (-1..65535 -> int32_t).
+    """
+    for ctype, (lo, hi) in INPUT_CTYPES.items():
+        if all(lo <= r_lo and r_hi <= hi for r_lo, r_hi in input_ranges):
+            return ctype
+    return None
+
+
+def accumulator_bound(row, offset: int, shift: int, input_ranges, rounding: str) -> int:
+    """|c| + sum_j |a_j| * max(|lo_j|, |hi_j|) + r: no |acc + r| over the box exceeds it."""
+    reach = (max(abs(lo), abs(hi)) for lo, hi in input_ranges)
+    return abs(offset) + sum(abs(a) * r for a, r in zip(row, reach)) + rounding_constant(shift, rounding)
+
+
+def output_range(row, offset: int, shift: int, input_ranges, rounding: str) -> tuple[int, int]:
+    """Exact least and greatest (acc + r) >> s over the box, before the output clamp.
+
+    acc is linear in y, so its extremes sit at corners: each term at the end
+    of its range that makes it least (greatest); the shift is monotonic.
+    """
+    r = rounding_constant(shift, rounding)
+    low = offset + r + sum(min(a * lo, a * hi) for a, (lo, hi) in zip(row, input_ranges))
+    high = offset + r + sum(max(a * lo, a * hi) for a, (lo, hi) in zip(row, input_ranges))
+    return low >> shift, high >> shift
+
+
 @dataclass(frozen=True)
 class IntegerEstimator:
     """The integer part of a plan: exactly what generated code computes."""
@@ -94,9 +124,15 @@ class IntegerEstimator:
 
     def accumulator_bounds(self) -> list[int]:
         """Worst case |c_i| + sum_j |a_ij| * max(|lo_j|, |hi_j|) + r_i over the box, per output."""
-        reach = [max(abs(lo), abs(hi)) for lo, hi in self.input_ranges]
         return [
-            abs(c) + sum(abs(a) * r for a, r in zip(row, reach)) + rounding_constant(s, self.rounding)
+            accumulator_bound(row, c, s, self.input_ranges, self.rounding)
+            for row, c, s in zip(self.coefficients, self.offsets, self.shifts)
+        ]
+
+    def output_ranges(self) -> list[tuple[int, int]]:
+        """Exact unclamped output range over the box, per output (saturation can trigger only outside it)."""
+        return [
+            output_range(row, c, s, self.input_ranges, self.rounding)
             for row, c, s in zip(self.coefficients, self.offsets, self.shifts)
         ]
 
@@ -111,27 +147,37 @@ class IntegerEstimator:
         y = np.asarray(y)
         single = y.ndim == 1
         y = np.atleast_2d(y)
-        if y.shape[1] != self.n_inputs:
-            raise ValueError(f"expected {self.n_inputs} inputs per vector, got {y.shape[1]}")
-        if not np.issubdtype(y.dtype, np.integer):
-            raise ValueError("inputs must be integers")
-        lo = np.array([r[0] for r in self.input_ranges], dtype=np.int64)
-        hi = np.array([r[1] for r in self.input_ranges], dtype=np.int64)
-        yc = np.clip(y.astype(np.int64), lo, hi)
+        if y.ndim != 2 or y.shape[1] != self.n_inputs:
+            raise ValueError(f"expected {self.n_inputs} inputs per vector, got shape {y.shape}")
+        yc = self._clamp_to_box(y)
         bound = max(self.accumulator_bounds(), default=0)
         half = np.array([rounding_constant(s, self.rounding) for s in self.shifts], dtype=object)
         if bound < _FLOAT64_EXACT:
-            acc = (yc.astype(np.float64) @ np.array(self.coefficients, dtype=np.float64).T).astype(np.int64)
-            acc += np.array(self.offsets, dtype=np.int64) + half.astype(np.int64)
+            acc = (yc.astype(np.float64) @ np.array(self.coefficients, dtype=np.float64).T)
+            acc = acc.astype(np.int64) + (np.array(self.offsets, dtype=np.int64) + half.astype(np.int64))
         elif bound < 2**63:
             acc = yc @ np.array(self.coefficients, dtype=np.int64).T
             acc += np.array(self.offsets, dtype=np.int64) + half.astype(np.int64)
         else:
             acc = yc.astype(object) @ np.array(self.coefficients, dtype=object).T
-            acc = acc + np.array(self.offsets, dtype=object) + half
+            acc = acc + (np.array(self.offsets, dtype=object) + half)
         out = np.empty(acc.shape, dtype=np.int64)
         lo_out, hi_out = OUTPUT_CTYPES[self.output_ctype]
         for i, s in enumerate(self.shifts):
             column = acc[:, i] >> s  # arithmetic shift: floor division by 2**s, for int64 and int alike
             out[:, i] = np.clip(column, lo_out, hi_out).astype(np.int64)
         return out[0] if single else out
+
+    def _clamp_to_box(self, y: np.ndarray) -> np.ndarray:
+        """Inputs clamped to the box, as int64 (the box itself always fits int64)."""
+        lo = np.array([r[0] for r in self.input_ranges], dtype=np.int64)
+        hi = np.array([r[1] for r in self.input_ranges], dtype=np.int64)
+        if y.dtype == object:  # Python integers of any size
+            if not all(isinstance(v, (int, np.integer)) and not isinstance(v, bool) for v in y.flat):
+                raise ValueError("inputs must be integers")
+            return np.clip(y, lo.astype(object), hi.astype(object)).astype(np.int64)
+        if not np.issubdtype(y.dtype, np.integer):
+            raise ValueError("inputs must be integers")
+        if y.dtype == np.uint64:  # values beyond 2**63 would wrap in the cast to int64
+            y = np.minimum(y, np.uint64(2**63 - 1))
+        return np.clip(y.astype(np.int64), lo, hi)

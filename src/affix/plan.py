@@ -9,6 +9,7 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -48,6 +49,10 @@ class Plan:
     accumulator_headroom_bits: tuple[float, ...] | None = None
     budget: dict | None = None  # {"kind": "worst-case"|"rms-growth", "limits": [...], "margins": [...]}
     measured: dict | None = None  # measured deviation figures, keyed by data set
+    # Where the second moments of the coefficient-error form came from:
+    # "calibration" (the model's input moments) or "uniform-box" (none known).
+    moments_source: str | None = None
+    coefficient_method: str | None = None  # "plain" (round each) or "error-feedback" (searched)
     tool_version: str = field(default_factory=lambda: _version())
 
     def integer_estimator(self) -> IntegerEstimator:
@@ -81,6 +86,8 @@ class Plan:
             "accumulator_headroom_bits": _list(self.accumulator_headroom_bits),
             "budget": self.budget,
             "measured": self.measured,
+            "moments_source": self.moments_source,
+            "coefficient_method": self.coefficient_method,
         }
 
     @property
@@ -89,7 +96,15 @@ class Plan:
         return hashlib.sha256(text.encode()).hexdigest()
 
     def save(self, path) -> None:
-        Path(path).write_text(json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n")
+        """Write atomically: a reader never sees half a plan, and a failed write leaves the old one."""
+        path = Path(path)
+        text = json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
+        temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+        try:
+            temporary.write_text(text)
+            os.replace(temporary, path)
+        finally:
+            temporary.unlink(missing_ok=True)
 
     @classmethod
     def from_dict(cls, data, path=None) -> "Plan":
@@ -128,6 +143,8 @@ class Plan:
                 accumulator_headroom_bits=_tuple(data.get("accumulator_headroom_bits")),
                 budget=data.get("budget"),
                 measured=data.get("measured"),
+                moments_source=data.get("moments_source"),
+                coefficient_method=data.get("coefficient_method"),
                 tool_version=str(data.get("tool_version", "")),
             )
             plan.validate()
