@@ -1,0 +1,29 @@
+"""The C99 target: NAME.h and NAME.c, integer (table or unrolled) or float32."""
+from __future__ import annotations
+
+import numpy as np
+
+from affix.emit.context import build_context
+from affix.emit.templates import render
+from affix.errors import UsageError
+
+_FLOAT32_MAX = float(np.finfo(np.float32).max)
+
+
+def render_c(plan, name: str, *, arith: str = "int", style: str = "table") -> dict[str, str]:
+    """``{filename: text}`` of the C files for ``plan`` emitted as ``name``."""
+    if arith == "float32":
+        _check_float32_range(plan)
+    context = build_context(plan, name, arith=arith, style=style)
+    return {
+        f"{name}.h": render("c/header.h.jinja", **context),
+        f"{name}.c": render("c/source.c.jinja", **context),
+    }
+
+
+def _check_float32_range(plan) -> None:
+    """Refuse a model whose sums could overflow float32 over the box (inf would break the exact check)."""
+    reach = np.array([max(abs(lo), abs(hi)) for lo, hi in plan.input_ranges], dtype=float)
+    worst = np.abs(np.asarray(plan.offset)) + np.abs(np.asarray(plan.gain)) @ reach
+    if not np.all(worst < _FLOAT32_MAX / 2):  # margin for the rounding of each partial sum
+        raise UsageError("the model's outputs over the input box exceed the float32 range", "--arith float32")
