@@ -1,0 +1,98 @@
+"""One output built in one configuration at one lsb: shift, integers and their error figures."""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from fractions import Fraction
+
+import numpy as np
+
+from affix.arithmetic import accumulator_bound
+from affix.quantise.coefficients import mean_square, search_steps
+from affix.quantise.rounding_error import shift_error
+from affix.quantise.shift import Infeasible, choose_shift, fits, saturation
+
+
+@dataclass(frozen=True)
+class Configuration:
+    coef_bits: int
+    acc_bits: int
+    output_ctype: str
+
+    @property
+    def cost(self) -> tuple[int, int, int]:
+        """Cheaper first: coefficient width, then accumulator width, then output width."""
+        return self.coef_bits, self.acc_bits, 16 if self.output_ctype == "int16_t" else 32
+
+
+@dataclass(frozen=True, eq=False)
+class OutputDesign:
+    lsb: float
+    shift: int
+    offset: int  # c, accumulator scale
+    coefficients: tuple[int, ...]
+    accumulator_bound: int
+    searched: bool  # the error-feedback search beat plain rounding
+    error: np.ndarray  # integers less real targets, (offset, coefficients...), accumulator counts
+    plain_error: np.ndarray  # the same for plain rounding
+    rounding_rms: float  # physical units
+    worst_case: float = 0.0  # over the box, integer against float on the same counts
+
+    def coefficient_rms(self, moments, *, plain=False) -> float:
+        """RMS of the coefficient-quantisation deviation, physical units, under these moments."""
+        error = self.plain_error if plain else self.error
+        return self.lsb / 2.0**self.shift * math.sqrt(max(mean_square(error, moments), 0.0))
+
+
+def design_output(gain, offset, lsb, config, box, moments, rounding, search=True) -> OutputDesign:
+    """Raise Infeasible when no shift passes the proof or the box would saturate the output."""
+    g, b = np.asarray(gain, dtype=float) / lsb, offset / lsb
+    targets = choose_shift(g, b, box, config.coef_bits, config.acc_bits, rounding)
+    shift, plain = targets.shift, targets.plain
+    reason = saturation(plain, shift, box, rounding, config.output_ctype)
+    if reason:
+        raise Infeasible(reason)
+    chosen, error = plain, targets.plain_error
+    if search:
+        limit = 2 ** (config.coef_bits - 1)
+        low = np.array([-np.inf] + [-limit - a for a in plain[1:]], dtype=float)
+        high = np.array([np.inf] + [limit - 1 - a for a in plain[1:]], dtype=float)
+        steps = search_steps(error, moments, low, high)
+        candidate = tuple(q + int(k) for q, k in zip(plain, steps))
+        if (
+            mean_square(error + steps, moments) < mean_square(error, moments)
+            and fits(candidate, shift, box, config.coef_bits, config.acc_bits, rounding) is None
+            and saturation(candidate, shift, box, rounding, config.output_ctype) is None
+        ):
+            chosen, error = candidate, error + steps
+    design = OutputDesign(
+        lsb=lsb,
+        shift=shift,
+        offset=chosen[0],
+        coefficients=tuple(chosen[1:]),
+        accumulator_bound=accumulator_bound(chosen[1:], chosen[0], shift, box, rounding),
+        searched=chosen is not plain,
+        error=error,
+        plain_error=targets.plain_error,
+        rounding_rms=lsb * math.sqrt(shift_error(shift, rounding).variance),
+    )
+    return replace(design, worst_case=worst_case(design, gain, offset, box, rounding))
+
+
+def worst_case(design, gain, offset, box, rounding) -> float:
+    """Exact bound on |out * lsb - (gain . y + offset)| over the box, rounded up to a float.
+
+    The deviation is linear in y plus the shift's error e in [low, high]
+    counts, so it lies in [L + lsb*low, U + lsb*high] with L and U the
+    extremes of the linear part, attained at corners.  Computed in exact
+    rationals from the float gain and offset the plan carries.
+    """
+    lsb = Fraction(design.lsb)
+    scale = lsb / 2**design.shift
+    constant = scale * design.offset - Fraction(float(offset))
+    slopes = [scale * a - Fraction(float(gj)) for a, gj in zip(design.coefficients, gain)]
+    low = constant + sum(min(d * lo, d * hi) for d, (lo, hi) in zip(slopes, box))
+    high = constant + sum(max(d * lo, d * hi) for d, (lo, hi) in zip(slopes, box))
+    error = shift_error(design.shift, rounding)
+    bound = max(abs(low + lsb * Fraction(error.low)), abs(high + lsb * Fraction(error.high)))
+    return math.nextafter(float(bound), math.inf)

@@ -1,0 +1,62 @@
+"""Measured deviation of the integer reference, to set beside the prediction.
+
+Two data sets: random points of the box (integer against the plan's float
+estimator on the same counts; the prediction for them uses uniform moments),
+and, when given, the calibration rows (integer on the rows' counts against
+the model on the rows as they are, so input quantisation is included).
+Calibration rows outside the box are counted and left out: there the
+integer estimator clamps and the float one extrapolates.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from affix.quantise.box import corners
+
+
+class _Deviation:
+    """Running RMS and maximum of |deviation| per output."""
+
+    def __init__(self, n_outputs):
+        self.rows, self.square = 0, np.zeros(n_outputs)
+        self.largest = np.zeros(n_outputs)
+
+    def add(self, deviation):
+        self.rows += len(deviation)
+        self.square += (deviation**2).sum(axis=0)
+        self.largest = np.maximum(self.largest, np.abs(deviation).max(axis=0, initial=0.0))
+
+    def summary(self) -> dict:
+        rms = np.sqrt(self.square / self.rows) if self.rows else np.full(len(self.square), np.nan)
+        return {"rows": self.rows, "rms_deviation": rms.tolist(), "max_deviation": self.largest.tolist()}
+
+
+def measure_box(estimator, gain, offset, lsb, box, *, points, seed) -> dict:
+    lo = np.array([r[0] for r in box], dtype=np.int64)
+    hi = np.array([r[1] for r in box], dtype=np.int64)
+    y = np.random.default_rng(seed).integers(lo, hi, size=(points, len(box)), endpoint=True)
+    result = {"random": _deviation_on_counts(estimator, gain, offset, lsb, y)}
+    box_corners = corners(box)
+    if box_corners is not None:
+        result["corners"] = _deviation_on_counts(estimator, gain, offset, lsb, box_corners)
+    return result
+
+
+def measure_calibration(estimator, model, input_scale, lsb, box, chunks) -> dict:
+    lo = np.array([r[0] for r in box], dtype=float)
+    hi = np.array([r[1] for r in box], dtype=float)
+    tally, outside = _Deviation(model.n_outputs), 0
+    for chunk in chunks:
+        chunk = np.asarray(chunk, dtype=float).reshape(-1, model.n_inputs)
+        counts = np.rint(chunk / input_scale)
+        inside = np.all((counts >= lo) & (counts <= hi), axis=1)  # NaN rows fail this too
+        outside += int((~inside).sum())
+        rows, counts = chunk[inside], counts[inside].astype(np.int64)
+        tally.add(estimator.evaluate(counts) * lsb - model.predict(rows))
+    return {**tally.summary(), "rows_outside_box": outside}
+
+
+def _deviation_on_counts(estimator, gain, offset, lsb, y) -> dict:
+    tally = _Deviation(len(lsb))
+    tally.add(estimator.evaluate(y) * lsb - (y @ gain.T + offset))
+    return tally.summary()

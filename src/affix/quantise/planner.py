@@ -1,0 +1,157 @@
+"""plan_fixed_point: a fitted model and an input box in, a proven fixed-point Plan out."""
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+
+import numpy as np
+
+from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS
+from affix.errors import UsageError
+from affix.plan import Plan
+from affix.quantise.analysis import Problem
+from affix.quantise.box import resolve_per_name, resolve_ranges
+from affix.quantise.budget import DEFAULT_GROWTH_PERCENT, Budget
+from affix.quantise.measure import measure_box, measure_calibration
+from affix.quantise.moments import augmented_moments, uniform_box_moments
+from affix.quantise.search import ACC_BITS, COEF_BITS, choose, configurations
+
+BOX_POINTS = 100_000
+
+
+def plan_fixed_point(
+    model,
+    input_ranges,
+    *,
+    coef_bits=None,
+    acc_bits=None,
+    output_ctype=None,
+    output_lsb=None,
+    input_lsb=None,
+    budget=None,
+    budget_rms=None,
+    rounding="half-up",
+    calibration=None,
+    search=True,
+    box_points=BOX_POINTS,
+    seed=0,
+) -> Plan:
+    """Quantise ``model`` for integer inputs in ``input_ranges``.
+
+    input_ranges: one (lo, hi) for every input, a pair per input, or {name: (lo, hi)}
+        (key None for the rest); counts, as the microcontroller reads them.
+    coef_bits, acc_bits, output_ctype: fix a width; None searches it.
+    output_lsb, input_lsb, budget: one value for all, or {name: value}.
+        input_lsb marks the model's inputs as physical: physical = lsb * count.
+    budget: worst-case deviation limit per output (physical units).
+    budget_rms: allowed growth of the total RMS over the float estimator, in percent.
+        With neither and some width left to search, 1 % growth is aimed at, best effort.
+    calibration: optional iterable of float arrays (rows, n_inputs) in the model's
+        input units, to measure the integer reference on.
+    search: False rounds every coefficient on its own (no error feedback).
+    """
+    _check_choice(coef_bits, COEF_BITS, "--coef-bits")
+    _check_choice(acc_bits, ACC_BITS, "--acc-bits")
+    _check_choice(output_ctype, tuple(OUTPUT_CTYPES), "--output-type")
+    _check_choice(rounding, ROUNDINGS, "--rounding")
+    box = resolve_ranges(model.inputs, input_ranges)
+    lsb = resolve_per_name(model.outputs, output_lsb, "--lsb", kind="lsb")
+    input_lsb = resolve_per_name(model.inputs, input_lsb, "--input-lsb", kind="input lsb")
+    scale = np.array([1.0 if q is None else q for q in input_lsb])
+    physical = np.array([q is not None for q in input_lsb])
+    gain = model.gain * scale  # per count
+    moments, source = augmented_moments(model, box, scale)
+    float_rms = model.cv_rms if model.cv_rms is not None else model.rms
+    problem = Problem(
+        inputs=model.inputs,
+        outputs=model.outputs,
+        box=box,
+        gain=gain,
+        offset=model.offset,
+        lsb=lsb,
+        moments=moments,
+        moments_source=source,
+        rounding=rounding,
+        search=search,
+        float_rms=float_rms,
+        input_rms=np.sqrt((gain[:, physical] ** 2).sum(axis=1) / 12),
+        input_worst=np.abs(gain[:, physical]).sum(axis=1) / 2,
+    )
+    searching = None in (coef_bits, acc_bits, output_ctype)
+    chosen_budget = _budget(model, budget, budget_rms, float_rms, default=searching)
+    choice = choose(problem, configurations(coef_bits, acc_bits, output_ctype), chosen_budget)
+    plan = _plan(model, problem, choice, chosen_budget, input_lsb)
+    return _with_measurement(plan, problem, choice, model, scale, calibration, box_points, seed)
+
+
+def _check_choice(value, allowed, option):
+    if value is not None and value not in allowed:
+        raise UsageError(f"must be one of {', '.join(map(str, allowed))}, not {value!r}", option)
+
+
+def _budget(model, budget, budget_rms, float_rms, *, default):
+    if budget is not None and budget_rms is not None:
+        raise UsageError("give either a worst-case budget or an RMS-growth budget, not both", "--budget")
+    if budget is not None:
+        return Budget.worst_case(resolve_per_name(model.outputs, budget, "--budget", kind="budget"))
+    if budget_rms is not None:
+        if not (isinstance(budget_rms, (int, float)) and math.isfinite(budget_rms) and budget_rms >= 0):
+            raise UsageError(f"must be a percentage >= 0, not {budget_rms!r}", "--budget-rms")
+        if float_rms is None:
+            raise UsageError("the model carries no RMS of its own to grow from; use --budget", "--budget-rms")
+        return Budget.rms_growth(float(budget_rms), float_rms)
+    if default and float_rms is not None:
+        return Budget.rms_growth(DEFAULT_GROWTH_PERCENT, float_rms, default=True)
+    return None
+
+
+def _plan(model, problem, choice, budget, input_lsb) -> Plan:
+    designs, figures, config = choice.designs, choice.accuracy, choice.config
+    return Plan(
+        inputs=model.inputs,
+        outputs=model.outputs,
+        input_ranges=problem.box,
+        coefficients=tuple(d.coefficients for d in designs),
+        offsets=tuple(d.offset for d in designs),
+        shifts=tuple(d.shift for d in designs),
+        output_lsb=tuple(d.lsb for d in designs),
+        output_ctype=config.output_ctype,
+        coef_bits=config.coef_bits,
+        acc_bits=config.acc_bits,
+        rounding=problem.rounding,
+        gain=tuple(tuple(float(v) for v in row) for row in problem.gain),
+        offset=tuple(float(v) for v in problem.offset),
+        model_sha256=model.sha256,
+        input_lsb=None if all(q is None for q in input_lsb) else input_lsb,
+        float_rms=None if problem.float_rms is None else tuple(float(v) for v in problem.float_rms),
+        predicted_rms_deviation=figures.deviation,
+        predicted_total_rms=figures.total,
+        worst_case_deviation=figures.worst_case,
+        deviation_parts={
+            "coefficients": list(figures.coefficients),
+            "coefficients_plain_rounding": list(figures.plain_coefficients),
+            "output_rounding": list(figures.output_rounding),
+            "input_quantisation": list(figures.input_quantisation),
+        },
+        accumulator_bound=tuple(d.accumulator_bound for d in designs),
+        accumulator_headroom_bits=tuple(
+            float(config.acc_bits - 1 - math.log2(d.accumulator_bound)) if d.accumulator_bound else float(config.acc_bits - 1)
+            for d in designs
+        ),
+        budget=None if budget is None else budget.to_dict(figures),
+        moments_source=problem.moments_source,
+        coefficient_method="error-feedback" if problem.search else "plain",
+    )
+
+
+def _with_measurement(plan, problem, choice, model, scale, calibration, box_points, seed) -> Plan:
+    estimator = plan.integer_estimator()
+    lsb = np.array(plan.output_lsb)
+    measured = measure_box(estimator, problem.gain, problem.offset, lsb, problem.box, points=box_points, seed=seed)
+    uniform = uniform_box_moments(problem.box)
+    measured["random"]["predicted_rms_deviation"] = [
+        math.hypot(d.coefficient_rms(uniform), d.rounding_rms) for d in choice.designs
+    ]
+    if calibration is not None:
+        measured["calibration"] = measure_calibration(estimator, model, scale, lsb, problem.box, calibration)
+    return replace(plan, measured=measured)

@@ -1,0 +1,82 @@
+"""Shift choice with the overflow proof over the input box (no simulation).
+
+For one output at scale lsb, the ideal accumulator coefficients at shift s
+are g_j * 2**s (g = gain per count / lsb) and the offset b * 2**s (b =
+offset / lsb), less the mean output-rounding error so that it cancels.  The
+chosen s is the largest for which every rounded coefficient fits coef_bits
+and |c| + sum_j |a_j| * max(|lo_j|, |hi_j|) + r fits the accumulator.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from affix.arithmetic import OUTPUT_CTYPES, accumulator_bound, output_range
+from affix.quantise.rounding_error import round_half_up, shift_error
+
+
+class Infeasible(Exception):
+    """This output cannot be built in this configuration at this lsb; the message says why."""
+
+
+@dataclass(frozen=True)
+class Targets:
+    """Real accumulator-scale values at one shift, (offset, coefficients...) in z order."""
+
+    shift: int
+    values: np.ndarray  # (1 + n_inputs,)
+    plain: tuple[int, ...]  # each rounded half-up on its own
+    plain_error: np.ndarray  # plain - values, computed without cancellation
+
+
+def targets_at(g: np.ndarray, b: float, shift: int, rounding: str) -> Targets:
+    scale = 2.0**shift
+    values = np.concatenate(([b * scale - shift_error(shift, rounding).mean * scale], g * scale))
+    whole = np.floor(values)
+    up = values - whole >= 0.5
+    plain = tuple(int(w) + int(u) for w, u in zip(whole, up))
+    return Targets(shift, values, plain, up - (values - whole))
+
+
+def fits(plain, shift, box, coef_bits, acc_bits, rounding) -> str | None:
+    """None when the integers pass the box proof at this shift, else the reason they do not."""
+    limit = 2 ** (coef_bits - 1)
+    c, row = plain[0], plain[1:]
+    if any(not -limit <= a < limit for a in row):
+        return f"a coefficient needs more than {coef_bits} bits"
+    if accumulator_bound(row, c, shift, box, rounding) >= 2 ** (acc_bits - 1):
+        return f"the worst case over the input box overflows a {acc_bits}-bit accumulator"
+    return None
+
+
+def saturation(plain, shift, box, rounding, output_ctype) -> str | None:
+    """None when no point of the box drives the output beyond its type (no saturation), else why."""
+    low, high = output_range(plain[1:], plain[0], shift, box, rounding)
+    type_lo, type_hi = OUTPUT_CTYPES[output_ctype]
+    if low < type_lo or high > type_hi:
+        return f"the output spans {low}..{high} counts over the input box, beyond {output_ctype}"
+    return None
+
+
+def choose_shift(g, b, box, coef_bits, acc_bits, rounding) -> Targets:
+    """The largest shift whose plainly rounded integers pass the box proof."""
+    # The coefficient limit gives a safe start (no larger shift can fit it);
+    # the accumulator limit is not estimated, as rounding toward zero can
+    # let a larger shift fit than the real values suggest.
+    start = min(acc_bits - 1, _log2_room(2.0 ** (coef_bits - 1) - 1, np.max(np.abs(g), initial=0.0)))
+    reason = "no shift fits"
+    for shift in range(max(start, 0), -1, -1):
+        targets = targets_at(g, b, shift, rounding)
+        reason = fits(targets.plain, shift, box, coef_bits, acc_bits, rounding)
+        if reason is None:
+            return targets
+    raise Infeasible(reason)
+
+
+def _log2_room(room: float, need: float) -> int:
+    """A shift one above the largest with need * 2**s <= room (the caller steps down from it)."""
+    if need == 0:
+        return 10**6
+    return math.floor(math.log2(room / need)) + 1
