@@ -1,1 +1,62 @@
-"""Intake: read calibration data (CSV, .npy, .npz) in bounded-memory chunks."""
+"""Intake: read calibration data (CSV, .npy, .npz) in bounded-memory chunks.
+
+Formats, chosen by the file suffix:
+
+* ``.npy`` -- one 2-D array; its columns are named by index: "0", "1", ...
+* ``.npz`` -- 1-D arrays of equal length, each a column named by its key
+  (``np.savez("cal.npz", b1=..., Fx=...)``); or a single 2-D array, read
+  like a .npy.
+* anything else -- CSV with a header line; columns are named by the header.
+
+Rows are counted from 1 (the CSV header not included) in every message.
+"""
+from __future__ import annotations
+
+from collections import Counter
+from pathlib import Path
+
+from affix.errors import DataError
+from affix.intake import array_format, csv_format
+from affix.intake.stream import ChunkStream
+
+DEFAULT_CHUNK_ROWS = 1 << 16
+
+__all__ = ["DEFAULT_CHUNK_ROWS", "ChunkStream", "column_names", "read_chunks"]
+
+
+def column_names(path) -> list[str]:
+    """The names of the columns the file offers, in file order."""
+    path = _existing(path)
+    return _format(path).column_names(path)
+
+
+def read_chunks(path, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_invalid: bool = False) -> ChunkStream:
+    """The chosen columns of the file as one pass of float64 chunks (see ChunkStream).
+
+    Missing files and columns, ambiguous names and unreadable headers are
+    reported here, before any row is read; cell-level problems during the pass.
+    """
+    path = _existing(path)
+    columns = list(columns)
+    fmt = _format(path)
+    available = fmt.column_names(path)
+    counts = Counter(available)
+    for name in columns:
+        if name not in counts:
+            raise DataError(f"no column '{name}' (available: {', '.join(available)})", path)
+        if counts[name] > 1:
+            raise DataError(f"the header names column '{name}' {counts[name]} times, so it is ambiguous", path)
+    if chunk_rows < 1:
+        raise ValueError("chunk_rows must be positive")
+    return ChunkStream(path, columns, fmt.raw_chunks(path, columns, chunk_rows), drop_invalid)
+
+
+def _existing(path) -> Path:
+    path = Path(path)
+    if not path.is_file():
+        raise DataError("no such file" if not path.exists() else "not a regular file", path)
+    return path
+
+
+def _format(path: Path):
+    return array_format if path.suffix.lower() in (".npy", ".npz") else csv_format

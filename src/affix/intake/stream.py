@@ -1,0 +1,54 @@
+"""One pass over the chosen columns of a data file, screening invalid rows."""
+from __future__ import annotations
+
+import numpy as np
+
+from affix.errors import DataError
+from affix.intake.digest import FileDigest
+
+
+class ChunkStream:
+    """Iterate once for float64 chunks (k, len(columns)) in file order.
+
+    Rows holding NaN, an infinity or an empty cell in a chosen column are
+    never yielded.  Without ``drop_invalid`` the pass still runs to the end, to
+    count them, and then raises DataError naming the count and the first one.
+    After a complete pass the attributes hold what the pass found:
+    ``rows_read`` (data rows in the file), ``rows_dropped``, ``first_invalid``
+    ((row, column) or None) and ``sha256`` (of the whole file).
+    """
+
+    def __init__(self, path, columns, raw_chunks, drop_invalid=False):
+        self.path, self.columns, self.drop_invalid = path, list(columns), drop_invalid
+        self._raw = raw_chunks
+        self.rows_read = 0
+        self.rows_dropped = 0
+        self.first_invalid = None
+        self.sha256 = None
+
+    def __iter__(self):
+        digest = FileDigest(self.path)
+        for chunk in self._raw:
+            valid = np.isfinite(chunk).all(axis=1)
+            if not valid.all():
+                self._note_invalid(chunk, valid)
+                chunk = chunk[valid]
+            self.rows_read += len(valid)
+            if len(chunk) and (self.drop_invalid or not self.rows_dropped):
+                yield chunk
+        self.sha256 = digest.hexdigest()
+        if self.rows_dropped and not self.drop_invalid:
+            row, column = self.first_invalid
+            raise DataError(
+                f"{self.rows_dropped} row(s) hold NaN, infinite or empty values, the first in column "
+                f"'{column}'; fix them or pass --drop-invalid to leave such rows out",
+                self.path,
+                row=row,
+            )
+
+    def _note_invalid(self, chunk, valid):
+        if self.first_invalid is None:
+            i = int(np.argmin(valid))
+            j = int(np.argmin(np.isfinite(chunk[i])))
+            self.first_invalid = (self.rows_read + i + 1, self.columns[j])
+        self.rows_dropped += int(np.count_nonzero(~valid))

@@ -1,0 +1,71 @@
+"""Mergeable first and second moments of a set of rows.
+
+A :class:`Moments` holds the row count, the column means and the centred
+scatter matrix (sum of outer products of deviations from the mean).  Two of
+them combine with the pairwise update of Chan, Golub & LeVeque (1979),
+
+    n = na + nb,   d = mean_b - mean_a,
+    mean = mean_a + d * nb / n,
+    scatter = scatter_a + scatter_b + outer(d, d) * na * nb / n,
+
+which never forms raw sums of squares, so large offsets (ADC counts near
+full scale) cost no precision, and parts merge in any order to the same
+result up to rounding.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass(frozen=True, eq=False)
+class Moments:
+    count: int
+    mean: np.ndarray  # (d,)
+    scatter: np.ndarray  # (d, d), centred: sum of (row - mean)(row - mean)^T
+
+    @classmethod
+    def empty(cls, width: int) -> "Moments":
+        return cls(0, np.zeros(width), np.zeros((width, width)))
+
+    @classmethod
+    def of(cls, rows) -> "Moments":
+        """Moments of the rows (k, d) in one go (two-pass: mean, then centred products)."""
+        rows = np.asarray(rows, dtype=np.float64)
+        if len(rows) == 0:
+            return cls.empty(rows.shape[1])
+        mean = rows.mean(axis=0)
+        centred = rows - mean
+        return cls(len(rows), mean, centred.T @ centred)
+
+    @property
+    def width(self) -> int:
+        return len(self.mean)
+
+    @property
+    def covariance(self) -> np.ndarray:
+        """Sample covariance, 1/(n-1) scaling."""
+        return self.scatter / (self.count - 1)
+
+    def merge(self, other: "Moments") -> "Moments":
+        if other.count == 0:
+            return self
+        if self.count == 0:
+            return other
+        n = self.count + other.count
+        delta = other.mean - self.mean
+        mean = self.mean + delta * (other.count / n)
+        scatter = self.scatter + other.scatter + np.outer(delta, delta) * (self.count * other.count / n)
+        return Moments(n, mean, scatter)
+
+
+def merge_all(parts, width: int) -> Moments:
+    """Merge many parts pairwise as a balanced tree, so rounding grows with log(parts)."""
+    parts = [p for p in parts if p.count]
+    if not parts:
+        return Moments.empty(width)
+    while len(parts) > 1:
+        merged = [a.merge(b) for a, b in zip(parts[::2], parts[1::2])]
+        parts = merged + ([parts[-1]] if len(parts) % 2 else [])
+    return parts[0]
