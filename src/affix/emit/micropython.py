@@ -26,10 +26,16 @@ SMALL_INT_64 = (-(2**62), 2**62 - 1)
 # |acc + r| < 2**31.
 _VIPER_MAX_SHIFT = 31
 VIPER_WORD_BITS = 32
+MODULE_TEMPLATE = "micropython/module.py.jinja"
 
 
 def render_micropython(plan, name: str) -> dict[str, str]:
     """The emitted files: ``{"NAME.py": text}``."""
+    return {f"{name}.py": render(MODULE_TEMPLATE, **micropython_context(plan, name))}
+
+
+def micropython_context(plan, name: str) -> dict:
+    """The shared template context plus the MicroPython facts of this module."""
     context = build_context(plan, name)
     for output in context["outputs"]:
         output["viper_shift"] = min(output["shift"], _VIPER_MAX_SHIFT)
@@ -42,7 +48,7 @@ def render_micropython(plan, name: str) -> dict[str, str]:
         small_int_64_max=SMALL_INT_64[1],
         viper_word_bits=VIPER_WORD_BITS,
     )
-    return {f"{name}.py": render("micropython/module.py.jinja", **context)}
+    return context
 
 
 # The functions below take the integer part of a plan (an IntegerEstimator),
