@@ -11,7 +11,7 @@ import math
 
 import numpy as np
 
-from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, rounding_constant
+from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, input_ctype as smallest_input_ctype, output_range, rounding_constant
 from affix.errors import UsageError
 from affix.float32_arithmetic import Float32Estimator
 
@@ -27,16 +27,16 @@ _ACCURACY_FIELDS = ("float_rms", "predicted_rms_deviation", "predicted_total_rms
 
 
 def input_ctype(input_ranges) -> str:
-    """The smallest standard type that holds every declared input range."""
-    for ctype, (lo, hi) in INPUT_CTYPES.items():
-        if all(lo <= r_lo and r_hi <= hi for r_lo, r_hi in input_ranges):
-            return ctype
-    raise UsageError("an input range does not fit any of " + ", ".join(INPUT_CTYPES), "plan input_ranges")
+    """The one C type of every input: the smallest standard type holding the whole box."""
+    ctype = smallest_input_ctype(input_ranges)
+    if ctype is None:
+        raise UsageError("an input range does not fit any of " + ", ".join(INPUT_CTYPES), "plan input_ranges")
+    return ctype
 
 
 def build_context(plan, name: str, *, arith: str = "int", style: str = "table") -> dict:
     """The template context for ``plan`` emitted as ``name``."""
-    estimator = plan.integer_estimator()
+    bounds = plan.integer_estimator().accumulator_bounds()
     in_ctype = input_ctype(plan.input_ranges)
     type_lo, type_hi = INPUT_CTYPES[in_ctype]
     out_lo, out_hi = OUTPUT_CTYPES[plan.output_ctype]
@@ -61,13 +61,11 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         row = plan.coefficients[i]
         shift = plan.shifts[i]
         round_const = rounding_constant(shift, plan.rounding)
-        acc_min = plan.offsets[i] + round_const + sum(min(a * lo, a * hi) for a, (lo, hi) in zip(row, plan.input_ranges))
-        acc_max = plan.offsets[i] + round_const + sum(max(a * lo, a * hi) for a, (lo, hi) in zip(row, plan.input_ranges))
         # |acc + r| < 2**(acc_bits-1) over the box, so any shift >= acc_bits-1
         # floors to -1 or 0 exactly like acc_bits-1 does, and a shift by the
         # full width (undefined in C) is never needed.
         applied = min(shift, plan.acc_bits - 1)
-        q_min, q_max = acc_min >> shift, acc_max >> shift
+        q_min, q_max = output_range(row, plan.offsets[i], shift, plan.input_ranges, plan.rounding)
         frac_bits = _power_of_two_exponent(plan.output_lsb[i])
         outputs.append(
             {
@@ -78,9 +76,7 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
                 "shift": shift,
                 "applied_shift": applied,
                 "round": round_const,
-                "acc_min": acc_min,
-                "acc_max": acc_max,
-                "acc_bound": estimator.accumulator_bounds()[i],
+                "acc_bound": bounds[i],
                 "q_min": q_min,
                 "q_max": q_max,
                 "saturate_lo": q_min < out_lo,

@@ -72,6 +72,7 @@ def manifest_for(plan, name: str, arith: str, style: str, files: dict, notes: li
         "output_ctype": plan.output_ctype,
         "inputs": list(plan.inputs),
         "input_ranges": [list(r) for r in plan.input_ranges],
+        "input_lsb": None if plan.input_lsb is None else list(plan.input_lsb),
         "outputs": list(plan.outputs),
         "output_lsb": list(plan.output_lsb),
         "coefficients": [list(row) for row in plan.coefficients],

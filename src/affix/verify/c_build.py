@@ -1,0 +1,182 @@
+"""Build emitted C for verification: a cffi (API mode) extension with a batch
+entry point, and a stand-alone driver program for sanitizer runs.
+
+The extension is compiled once per distinct source into a cache folder (never
+into the user's emit folder): ``$AFFIX_CACHE_DIR``, else
+``$XDG_CACHE_HOME/affix/cffi``, else ``~/.cache/affix/cffi``.  One call of
+the batch function evaluates a whole numpy buffer (``ffi.from_buffer``), so
+there is no Python call per vector.
+"""
+from __future__ import annotations
+
+import hashlib
+import importlib.util
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from affix.emit.templates import render
+from affix.errors import FileFormatError, ToolError
+
+DTYPES = {
+    "int8_t": np.int8,
+    "uint8_t": np.uint8,
+    "int16_t": np.int16,
+    "uint16_t": np.uint16,
+    "int32_t": np.int32,
+    "uint32_t": np.uint32,
+    "float": np.float32,
+}
+# -ffp-contract=off: the float32 contract has no fused multiply-adds (GCC's
+# default outside ISO modes is to fuse where the target can).
+COMPILE_FLAGS = ("-O2", "-std=c99", "-ffp-contract=off")
+
+
+@dataclass(frozen=True)
+class Signature:
+    """What the emitted function takes and returns, read from a manifest."""
+
+    name: str
+    input_ctype: str
+    output_ctype: str  # "float" for float32 code
+    n_inputs: int
+    n_outputs: int
+
+    @classmethod
+    def from_manifest(cls, manifest) -> "Signature":
+        return cls(
+            name=manifest["name"],
+            input_ctype=manifest["input_ctype"],
+            output_ctype="float" if manifest["arith"] == "float32" else manifest["output_ctype"],
+            n_inputs=len(manifest["inputs"]),
+            n_outputs=len(manifest["outputs"]),
+        )
+
+    @property
+    def template_context(self) -> dict:
+        return {"name": self.name, "input_ctype": self.input_ctype, "output_ctype": self.output_ctype}
+
+
+class CEstimator:
+    """The emitted C function, loaded through cffi; ``evaluate`` takes integer rows."""
+
+    def __init__(self, module, signature: Signature):
+        self._ffi, self._lib = module.ffi, module.lib
+        self.signature = signature
+        self._batch = getattr(self._lib, f"{signature.name}_verify_batch")
+
+    def evaluate(self, vectors) -> np.ndarray:
+        sig = self.signature
+        y = np.ascontiguousarray(vectors, dtype=DTYPES[sig.input_ctype]).reshape(-1, sig.n_inputs)
+        x = np.empty((len(y), sig.n_outputs), dtype=DTYPES[sig.output_ctype])
+        self._batch(
+            self._ffi.cast(f"const {sig.input_ctype} *", self._ffi.from_buffer(y)),
+            self._ffi.cast(f"{sig.output_ctype} *", self._ffi.from_buffer(x, require_writable=True)),
+            len(y),
+        )
+        return x
+
+
+def load_c(emit_dir, manifest, *, cache_dir=None) -> CEstimator:
+    """Compile (or reuse from the cache) and load the emitted C of ``manifest``."""
+    import cffi
+
+    signature = Signature.from_manifest(manifest)
+    source, header = _emitted_sources(Path(emit_dir), manifest)
+    batch = render("c/verify_batch.c.jinja", declaration_only=False, **signature.template_context)
+    cdef = render("c/verify_batch.c.jinja", declaration_only=True, **signature.template_context)
+    key = hashlib.sha256(
+        "\0".join(
+            [source.read_text(), header.read_text(), batch, cdef, " ".join(COMPILE_FLAGS), sys.version, cffi.__version__]
+        ).encode()
+    ).hexdigest()[:20]
+    module_name = f"_affix_verify_{key}"
+    cache = Path(cache_dir) if cache_dir is not None else default_cache_dir()
+    cache.mkdir(parents=True, exist_ok=True)
+    built = next(cache.glob(f"{module_name}.*.so"), None) or next(cache.glob(f"{module_name}.so"), None)
+    if built is None:
+        built = _compile(cffi, module_name, cdef, batch, source, header, cache)
+    spec = importlib.util.spec_from_file_location(module_name, built)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return CEstimator(module, signature)
+
+
+def default_cache_dir() -> Path:
+    if os.environ.get("AFFIX_CACHE_DIR"):
+        return Path(os.environ["AFFIX_CACHE_DIR"])
+    base = Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache")
+    return base / "affix" / "cffi"
+
+
+def build_driver(emit_dir, manifest, out_dir, *, extra_flags=()) -> Path:
+    """Compile the emitted C with a stand-alone vector driver (for sanitizer runs)."""
+    signature = Signature.from_manifest(manifest)
+    source, header = _emitted_sources(Path(emit_dir), manifest)
+    out_dir = Path(out_dir)
+    driver = out_dir / f"{signature.name}_driver.c"
+    driver.write_text(render("c/vector_driver.c.jinja", **signature.template_context))
+    exe = out_dir / f"{signature.name}_driver"
+    _run_compiler(
+        [_compiler(), *COMPILE_FLAGS, *extra_flags, f"-I{header.parent}", str(source), str(driver), "-o", str(exe)]
+    )
+    return exe
+
+
+def run_driver(exe, manifest, vectors) -> np.ndarray:
+    signature = Signature.from_manifest(manifest)
+    with tempfile.TemporaryDirectory(prefix="affix-driver-") as tmp:
+        vin, vout = Path(tmp) / "in.bin", Path(tmp) / "out.bin"
+        np.ascontiguousarray(vectors, dtype=DTYPES[signature.input_ctype]).tofile(vin)
+        done = subprocess.run([str(exe), str(vin), str(vout)], capture_output=True, text=True, timeout=600)
+        if done.returncode != 0:
+            raise ToolError(f"{Path(exe).name} exited with status {done.returncode}: {done.stderr.strip()[-2000:]}")
+        return np.fromfile(vout, dtype=DTYPES[signature.output_ctype]).reshape(-1, signature.n_outputs)
+
+
+def _emitted_sources(emit_dir: Path, manifest) -> tuple[Path, Path]:
+    name = manifest["name"]
+    source, header = emit_dir / f"{name}.c", emit_dir / f"{name}.h"
+    for path in (source, header):
+        if not path.is_file():
+            raise FileFormatError("listed in the manifest but missing", path)
+    return source, header
+
+
+def _compile(cffi, module_name, cdef, batch, source: Path, header: Path, cache: Path) -> Path:
+    ffi = cffi.FFI()
+    ffi.cdef(cdef)
+    ffi.set_source(
+        module_name,
+        batch,
+        sources=[str(source)],
+        include_dirs=[str(header.parent)],
+        extra_compile_args=list(COMPILE_FLAGS),
+    )
+    with tempfile.TemporaryDirectory(prefix="affix-cffi-", dir=cache) as tmp:
+        try:
+            built = Path(ffi.compile(tmpdir=tmp, verbose=False))
+        except Exception as exc:  # distutils reports compiler failures as its own error types
+            raise ToolError(f"building {source.name} with cffi failed: {exc}") from None
+        target = cache / built.name
+        os.replace(built, target)  # atomic: a concurrent build of the same source is harmless
+    return target
+
+
+def _compiler() -> str:
+    cc = os.environ.get("CC") or shutil.which("cc") or shutil.which("gcc")
+    if not cc:
+        raise ToolError("no C compiler found (install gcc, or set CC)")
+    return cc
+
+
+def _run_compiler(command: list[str]) -> None:
+    done = subprocess.run(command, capture_output=True, text=True, timeout=600)
+    if done.returncode != 0:
+        raise ToolError(f"compiling failed: {' '.join(command)}: {done.stderr.strip()[-2000:]}")
