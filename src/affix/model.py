@@ -39,6 +39,7 @@ class Model:
     condition_number: float | None = None
     data_sha256: str | None = None
     source: str = "affix fit"
+    dropped_rows: int = 0  # rows left out for NaN, infinite or empty values (drop_invalid)
     tool_version: str = field(default_factory=lambda: _version())
 
     def __post_init__(self):
@@ -99,6 +100,7 @@ class Model:
             "folds": int(self.folds),
             "condition_number": self.condition_number,
             "data_sha256": self.data_sha256,
+            "dropped_rows": int(self.dropped_rows),
         }
 
     @property
@@ -133,6 +135,7 @@ class Model:
                 condition_number=data.get("condition_number"),
                 data_sha256=data.get("data_sha256"),
                 source=str(data.get("source", "affix fit")),
+                dropped_rows=int(data.get("dropped_rows", 0)),
                 tool_version=str(data.get("tool_version", "")),
             )
         except (ValueError, TypeError) as exc:

@@ -1,5 +1,176 @@
-"""(being built)"""
+"""``affix.fit``: calibration data in, a :class:`affix.model.Model` out.
+
+One pass over the data builds per-fold moments; everything else (gain,
+offset, error covariance, cross-validated RMS, conditioning) is computed from
+those small matrices.
+"""
+from __future__ import annotations
+
+import math
+import os
+import warnings
+from collections.abc import Mapping
+
+import numpy as np
+
+from affix.errors import DataError, FitError, UsageError
+from affix.fit import conditioning
+from affix.fit.adopt import adopt, default_names, is_fitted_linear
+from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
+from affix.intake import DEFAULT_CHUNK_ROWS, from_array, read_chunks
+from affix.model import Model
+from affix.statistics import accumulate, merge_all
 
 
-def fit(*args, **kwargs):
-    raise NotImplementedError
+class CollinearityWarning(UserWarning):
+    """Some inputs are nearly linear combinations of others; their gains are poorly determined."""
+
+
+def fit(
+    data,
+    inputs=None,
+    outputs=None,
+    *,
+    ridge: float = 0.0,
+    folds: int = 5,
+    drop_invalid: bool = False,
+    chunk_rows: int = DEFAULT_CHUNK_ROWS,
+) -> Model:
+    """Fit x_hat = gain @ y + offset by least squares.
+
+    ``data`` is one of
+      * a path to a CSV (columns by header name), .npy or .npz file -- see
+        :mod:`affix.intake`; ``inputs`` and ``outputs`` name the columns;
+      * a mapping of column name -> values (a dict of arrays, a pandas DataFrame);
+      * a pair ``(y, x)`` of arrays, rows are samples; names default to
+        y1.. and x1..;
+      * an already fitted estimator with ``coef_`` and ``intercept_``
+        (scikit-learn LinearRegression, Ridge, ...): adopted as it is, names
+        from ``feature_names_in_`` where it has them.
+
+    ``ridge`` is relative: gain = S_xy (S_yy + ridge * diag(S_yy))^-1.
+    ``folds`` = 0 skips cross-validation.  With ``drop_invalid`` rows holding
+    NaN, infinities or empty cells are left out (counted in ``dropped_rows``);
+    otherwise they are an error.
+    """
+    if is_fitted_linear(data):
+        return adopt(data, inputs, outputs)
+    if not (isinstance(ridge, (int, float)) and math.isfinite(ridge) and ridge >= 0):
+        raise UsageError(f"must be a finite number >= 0, got {ridge!r}", option="ridge")
+    if folds == 1 or folds < 0:
+        raise UsageError(f"must be 0 (no cross-validation) or at least 2, got {folds}", option="folds")
+    inputs, outputs, stream = _open(data, inputs, outputs, chunk_rows, drop_invalid)
+    m, width = len(inputs), len(inputs) + len(outputs)
+    parts = accumulate(stream, width, folds)
+    moments = merge_all(parts, width)
+    _check_rows(moments, inputs, stream.path)
+    r = correlation(moments, m)
+    condition = conditioning.condition_number(r)
+    if ridge == 0 and condition > conditioning.WARN_CONDITION and math.isfinite(condition):
+        names = conditioning.collinear_inputs(r, inputs)
+        warnings.warn(conditioning.describe(names, condition) + "; their gains are poorly determined", CollinearityWarning, stacklevel=2)
+    solution = _solve(moments, m, ridge, r, condition, inputs)
+    cv_rms = _cross_validate(parts, m, ridge) if folds >= 2 else None
+    covariance = moments.covariance
+    return Model(
+        inputs=inputs,
+        outputs=outputs,
+        gain=solution.gain,
+        offset=solution.offset,
+        error_covariance=error_covariance(moments, solution),
+        cv_rms=cv_rms,
+        n_samples=moments.count,
+        input_mean=moments.mean[:m],
+        input_covariance=covariance[:m, :m],
+        ridge=float(ridge),
+        folds=folds,
+        condition_number=condition if math.isfinite(condition) else None,
+        data_sha256=stream.sha256,
+        dropped_rows=stream.rows_dropped,
+    )
+
+
+def _open(data, inputs, outputs, chunk_rows, drop_invalid):
+    if isinstance(data, (str, os.PathLike)):
+        if inputs is None or outputs is None:
+            raise UsageError("fitting a file needs the names of its input and output columns")
+        inputs, outputs = _check_names(inputs, outputs)
+        return inputs, outputs, read_chunks(data, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
+    if isinstance(data, Mapping) or hasattr(data, "columns"):
+        if inputs is None or outputs is None:
+            raise UsageError("fitting named columns needs the names of the input and output columns")
+        inputs, outputs = _check_names(inputs, outputs)
+        missing = [name for name in inputs + outputs if name not in data]
+        if missing:
+            raise DataError(f"no column '{missing[0]}' (available: {', '.join(map(str, data.keys()))})")
+        values = np.column_stack([np.asarray(data[name], dtype=np.float64) for name in inputs + outputs])
+    elif isinstance(data, (tuple, list)) and len(data) == 2:
+        y, x = (np.asarray(a, dtype=np.float64) for a in data)
+        y, x = y.reshape(len(y), -1), x.reshape(len(x), -1)
+        if len(y) != len(x):
+            raise DataError(f"the inputs have {len(y)} rows but the outputs {len(x)}")
+        inputs = default_names("y", y.shape[1]) if inputs is None else inputs
+        outputs = default_names("x", x.shape[1]) if outputs is None else outputs
+        inputs, outputs = _check_names(inputs, outputs)
+        if (len(inputs), len(outputs)) != (y.shape[1], x.shape[1]):
+            raise UsageError(f"{len(inputs)} input and {len(outputs)} output names for arrays of {y.shape[1]} and {x.shape[1]} columns")
+        values = np.hstack([y, x])
+    else:
+        raise UsageError(f"cannot fit {type(data).__name__}: give a file path, a mapping of columns, a pair (y, x) or a fitted estimator")
+    return inputs, outputs, from_array(values, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
+
+
+def _check_names(inputs, outputs):
+    inputs, outputs = [str(n) for n in inputs], [str(n) for n in outputs]
+    if not inputs or not outputs:
+        raise UsageError("name at least one input and one output column")
+    for role, names in (("inputs", inputs), ("outputs", outputs)):
+        twice = sorted({n for n in names if names.count(n) > 1})
+        if twice:
+            raise UsageError(f"column '{twice[0]}' is listed twice in the {role}")
+    both = [n for n in outputs if n in inputs]
+    if both:
+        raise UsageError(f"column '{both[0]}' is both an input and an output")
+    return inputs, outputs
+
+
+def _check_rows(moments, inputs, path):
+    m, n = len(inputs), moments.count
+    if n < m + 2:
+        raise DataError(f"only {n} usable row(s); fitting {m} input(s) needs at least {m + 2}", path)
+    spread = np.sqrt(np.diag(moments.scatter)[:m] / (n - 1))
+    for name, mean, sd in zip(inputs, moments.mean[:m], spread):
+        if sd <= 8 * np.finfo(float).eps * abs(mean):
+            raise DataError(
+                f"input column is constant ({mean:.6g} in every row), so it carries no information; leave it out",
+                path,
+                column=name,
+            )
+
+
+def _solve(moments, m, ridge, r, condition, inputs):
+    if ridge > 0 or condition <= conditioning.SINGULAR_CONDITION:
+        try:
+            return solve(moments, m, ridge)
+        except np.linalg.LinAlgError:
+            pass
+    suggestion = max(conditioning.suggested_ridge(r), 10 * ridge)
+    raise FitError(
+        conditioning.describe(conditioning.collinear_inputs(r, inputs), condition)
+        + f": they do not determine the gains; pass --ridge {suggestion:g} or leave one of them out"
+    )
+
+
+def _cross_validate(parts, m, ridge):
+    smallest = min(sum(p.count for p in parts) - p.count for p in parts)
+    if smallest < m + 2:
+        raise FitError(
+            f"too few rows for {len(parts)}-fold cross-validation: a training split would hold only "
+            f"{smallest} rows for {m} input(s); use fewer --folds, or --folds 0 to skip it"
+        )
+    try:
+        return cross_validated_rms(parts, m, ridge)
+    except np.linalg.LinAlgError:
+        raise FitError(
+            f"a {len(parts)}-fold cross-validation split leaves the inputs singular; use --ridge or fewer --folds"
+        ) from None

@@ -15,13 +15,15 @@ from __future__ import annotations
 from collections import Counter
 from pathlib import Path
 
+import numpy as np
+
 from affix.errors import DataError
 from affix.intake import array_format, csv_format
 from affix.intake.stream import ChunkStream
 
 DEFAULT_CHUNK_ROWS = 1 << 16
 
-__all__ = ["DEFAULT_CHUNK_ROWS", "ChunkStream", "column_names", "read_chunks"]
+__all__ = ["DEFAULT_CHUNK_ROWS", "ChunkStream", "column_names", "from_array", "read_chunks"]
 
 
 def column_names(path) -> list[str]:
@@ -49,6 +51,13 @@ def read_chunks(path, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_inv
     if chunk_rows < 1:
         raise ValueError("chunk_rows must be positive")
     return ChunkStream(path, columns, fmt.raw_chunks(path, columns, chunk_rows), drop_invalid)
+
+
+def from_array(values, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_invalid: bool = False) -> ChunkStream:
+    """Rows already in memory (k, len(columns)) as the same kind of pass as a file gives."""
+    values = np.asarray(values, dtype=np.float64)
+    slices = (values[start : start + chunk_rows] for start in range(0, len(values), chunk_rows))
+    return ChunkStream(None, columns, slices, drop_invalid)
 
 
 def _existing(path) -> Path:

@@ -15,7 +15,8 @@ class ChunkStream:
     count them, and then raises DataError naming the count and the first one.
     After a complete pass the attributes hold what the pass found:
     ``rows_read`` (data rows in the file), ``rows_dropped``, ``first_invalid``
-    ((row, column) or None) and ``sha256`` (of the whole file).
+    ((row, column) or None) and ``sha256`` (of the whole file; None for
+    data in memory).
     """
 
     def __init__(self, path, columns, raw_chunks, drop_invalid=False):
@@ -27,7 +28,7 @@ class ChunkStream:
         self.sha256 = None
 
     def __iter__(self):
-        digest = FileDigest(self.path)
+        digest = FileDigest(self.path) if self.path is not None else None
         for chunk in self._raw:
             valid = np.isfinite(chunk).all(axis=1)
             if not valid.all():
@@ -36,7 +37,7 @@ class ChunkStream:
             self.rows_read += len(valid)
             if len(chunk) and (self.drop_invalid or not self.rows_dropped):
                 yield chunk
-        self.sha256 = digest.hexdigest()
+        self.sha256 = digest.hexdigest() if digest else None
         if self.rows_dropped and not self.drop_invalid:
             row, column = self.first_invalid
             raise DataError(
