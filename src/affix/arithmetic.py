@@ -139,7 +139,7 @@ class IntegerEstimator:
     def evaluate(self, y) -> np.ndarray:
         """Integer outputs for rows y of shape (k, n_inputs) (or one vector), as int64.
 
-        Exact: float64 BLAS when every partial sum stays below 2**53 (all
+        Exact: float64 BLAS and power-of-two scaling when every partial sum stays below 2**53 (all
         partial sums are integers bounded by the box bound, so no rounding can
         occur in any summation order), int64 when below 2**63, Python
         integers otherwise.
@@ -151,21 +151,21 @@ class IntegerEstimator:
             raise ValueError(f"expected {self.n_inputs} inputs per vector, got shape {y.shape}")
         yc = self._clamp_to_box(y)
         bound = max(self.accumulator_bounds(), default=0)
-        half = np.array([rounding_constant(s, self.rounding) for s in self.shifts], dtype=object)
-        if bound < _FLOAT64_EXACT:
-            acc = (yc.astype(np.float64) @ np.array(self.coefficients, dtype=np.float64).T)
-            acc = acc.astype(np.int64) + (np.array(self.offsets, dtype=np.int64) + half.astype(np.int64))
-        elif bound < 2**63:
-            acc = yc @ np.array(self.coefficients, dtype=np.int64).T
-            acc += np.array(self.offsets, dtype=np.int64) + half.astype(np.int64)
-        else:
-            acc = yc.astype(object) @ np.array(self.coefficients, dtype=object).T
-            acc = acc + (np.array(self.offsets, dtype=object) + half)
-        out = np.empty(acc.shape, dtype=np.int64)
         lo_out, hi_out = OUTPUT_CTYPES[self.output_ctype]
-        for i, s in enumerate(self.shifts):
-            column = acc[:, i] >> s  # arithmetic shift: floor division by 2**s, for int64 and int alike
-            out[:, i] = np.clip(column, lo_out, hi_out).astype(np.int64)
+        constant = [c + rounding_constant(s, self.rounding) for c, s in zip(self.offsets, self.shifts)]
+        if bound < _FLOAT64_EXACT:
+            # Every value here is an integer (or an integer over a power of
+            # two) below 2**53, so each product, sum, scaling and floor is exact.
+            acc = yc.astype(np.float64) @ np.array(self.coefficients, dtype=np.float64).T
+            acc += np.array(constant, dtype=np.float64)
+            out = np.floor(acc * np.array([2.0**-s for s in self.shifts]))
+        elif bound < 2**63:
+            acc = yc @ np.array(self.coefficients, dtype=np.int64).T + np.array(constant, dtype=np.int64)
+            out = acc >> np.array(self.shifts, dtype=np.int64)  # arithmetic shift: floor division by 2**s
+        else:
+            acc = yc.astype(object) @ np.array(self.coefficients, dtype=object).T + np.array(constant, dtype=object)
+            out = acc >> np.array(self.shifts, dtype=object)  # Python's >> floors too
+        out = np.clip(out, lo_out, hi_out).astype(np.int64)
         return out[0] if single else out
 
     def _clamp_to_box(self, y: np.ndarray) -> np.ndarray:
@@ -180,4 +180,4 @@ class IntegerEstimator:
             raise ValueError("inputs must be integers")
         if y.dtype == np.uint64:  # values beyond 2**63 would wrap in the cast to int64
             y = np.minimum(y, np.uint64(2**63 - 1))
-        return np.clip(y.astype(np.int64), lo, hi)
+        return np.clip(y.astype(np.int64, copy=False), lo, hi)

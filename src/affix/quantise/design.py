@@ -7,7 +7,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from affix.arithmetic import accumulator_bound
+from affix.arithmetic import OUTPUT_CTYPES, accumulator_bound
 from affix.quantise.coefficients import mean_square, search_steps
 from affix.quantise.rounding_error import shift_error
 from affix.quantise.shift import Infeasible, choose_shift, fits, saturation
@@ -47,6 +47,7 @@ class OutputDesign:
 def design_output(gain, offset, lsb, config, box, moments, rounding, search=True) -> OutputDesign:
     """Raise Infeasible when no shift passes the proof or the box would saturate the output."""
     g, b = np.asarray(gain, dtype=float) / lsb, offset / lsb
+    _check_range(g, b, lsb, box, config.output_ctype)
     targets = choose_shift(g, b, box, config.coef_bits, config.acc_bits, rounding)
     shift, plain = targets.shift, targets.plain
     reason = saturation(plain, shift, box, rounding, config.output_ctype)
@@ -71,12 +72,26 @@ def design_output(gain, offset, lsb, config, box, moments, rounding, search=True
         offset=chosen[0],
         coefficients=tuple(chosen[1:]),
         accumulator_bound=accumulator_bound(chosen[1:], chosen[0], shift, box, rounding),
-        searched=chosen is not plain,
+        searched=chosen != plain,
         error=error,
         plain_error=targets.plain_error,
         rounding_rms=lsb * math.sqrt(shift_error(shift, rounding).variance),
     )
     return replace(design, worst_case=worst_case(design, gain, offset, box, rounding))
+
+
+def _check_range(g, b, lsb, box, output_ctype):
+    """The float output's range over the box, in counts, must fit the type (the exact check follows)."""
+    lo = np.array([r[0] for r in box], dtype=float)
+    hi = np.array([r[1] for r in box], dtype=float)
+    low = b + float(np.minimum(g * lo, g * hi).sum())
+    high = b + float(np.maximum(g * lo, g * hi).sum())
+    type_lo, type_hi = OUTPUT_CTYPES[output_ctype]
+    if low < type_lo - 0.5 or high > type_hi + 0.5:
+        raise Infeasible(
+            f"over the input box it spans {low * lsb:.6g}..{high * lsb:.6g}, "
+            f"{low:.6g}..{high:.6g} counts of {lsb:g}, beyond {output_ctype}"
+        )
 
 
 def worst_case(design, gain, offset, box, rounding) -> float:

@@ -50,9 +50,10 @@ def measure_calibration(estimator, model, input_scale, lsb, box, chunks) -> dict
         chunk = np.asarray(chunk, dtype=float).reshape(-1, model.n_inputs)
         counts = np.rint(chunk / input_scale)
         inside = np.all((counts >= lo) & (counts <= hi), axis=1)  # NaN rows fail this too
-        outside += int((~inside).sum())
-        rows, counts = chunk[inside], counts[inside].astype(np.int64)
-        tally.add(estimator.evaluate(counts) * lsb - model.predict(rows))
+        if not inside.all():
+            outside += int((~inside).sum())
+            chunk, counts = chunk[inside], counts[inside]
+        tally.add(estimator.evaluate(counts.astype(np.int64)) * lsb - model.predict(chunk))
     return {**tally.summary(), "rows_outside_box": outside}
 
 

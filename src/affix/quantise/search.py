@@ -66,7 +66,7 @@ def _best_achievable(problem, feasible, budget) -> str:
             best = min(feasible, key=lambda c: budget.figures(c.accuracy)[i])
             figure = budget.figures(best.accuracy)[i]
             parts.append(
-                f"{name} {figure:.4g} (limit {limit:.4g}; coef {best.config.coef_bits}, "
+                f"{name} {figure:.6g} (limit {limit:.6g}; coef {best.config.coef_bits}, "
                 f"acc {best.config.acc_bits}, {best.config.output_ctype})"
             )
     return f"no configuration meets the {what} budget; best achievable: " + ", ".join(parts)

@@ -1,5 +1,195 @@
-"""affix quantize (being built)."""
+"""affix quantize: a model file and an input box in, a proven fixed-point plan out.
+
+A thin layer over :func:`affix.quantise.plan_fixed_point`: it parses the
+options into plain values, prints the accuracy table (or a JSON summary)
+and writes the plan only after every check has passed.
+"""
+from __future__ import annotations
+
+import json
+import math
+
+from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS
+from affix.errors import UsageError
+from affix.model import Model
+from affix.quantise import plan_fixed_point
+from affix.quantise.search import ACC_BITS, COEF_BITS
 
 
 def register(sub):
-    sub.add_parser("quantize", help="(being built)")
+    parser = sub.add_parser(
+        "quantize",
+        help="choose integer widths, prove no overflow over the input box and predict the error",
+        description="Turn a fitted model into a fixed-point plan: integer coefficients, offsets and shifts "
+        "that provably cannot overflow for any input in the box, with the deviation they add.",
+    )
+    parser.add_argument("model", help="model file written by 'affix fit'")
+    parser.add_argument("--range", action="append", default=[], metavar="[NAME=]LO:HI",
+                        help="input range in integer counts; without NAME for every input (repeatable)")
+    parser.add_argument("--coef-bits", type=int, choices=COEF_BITS, help="coefficient width (default: searched)")
+    parser.add_argument("--acc-bits", type=int, choices=ACC_BITS, help="accumulator width (default: searched)")
+    parser.add_argument("--output-type", choices=tuple(OUTPUT_CTYPES), help="output C type (default: searched)")
+    parser.add_argument("--lsb", action="append", default=[], metavar="[NAME=]V",
+                        help="physical size of one output count (default: finest power of two that fits)")
+    parser.add_argument("--input-lsb", action="append", default=[], metavar="[NAME=]V",
+                        help="the model's input is physical: one count is V of its units")
+    parser.add_argument("--budget", action="append", default=[], metavar="[NAME=]V[,...]",
+                        help="largest worst-case deviation allowed per output, physical units")
+    parser.add_argument("--budget-rms", metavar="P%",
+                        help="largest growth of the total RMS over the float estimator, in percent")
+    parser.add_argument("--rounding", choices=ROUNDINGS, default="half-up", help="output rounding (default half-up)")
+    parser.add_argument("--plain-coefficients", action="store_true",
+                        help="round each coefficient on its own instead of the error-feedback search")
+    parser.add_argument("--data", metavar="CALIB_FILE", help="calibration rows to measure the integer reference on")
+    parser.add_argument("--out", required=True, metavar="PLAN_JSON", help="where to write the plan")
+    parser.add_argument("--json", action="store_true", help="print a JSON summary instead of the table")
+    parser.set_defaults(run=run)
+
+
+def run(args) -> int:
+    model = Model.load(args.model)
+    ranges = _named(args.range, "--range", _range_value)
+    if not ranges:
+        raise UsageError("give the input range in counts, e.g. --range 0:4095", "--range")
+    calibration = None
+    if args.data:
+        from affix.intake import read_chunks
+
+        calibration = read_chunks(args.data, list(model.inputs))
+    plan = plan_fixed_point(
+        model,
+        ranges,
+        coef_bits=args.coef_bits,
+        acc_bits=args.acc_bits,
+        output_ctype=args.output_type,
+        output_lsb=_named(args.lsb, "--lsb", _number) or None,
+        input_lsb=_named(args.input_lsb, "--input-lsb", _number) or None,
+        budget=_named([p for b in args.budget for p in b.split(",")], "--budget", _number) or None,
+        budget_rms=None if args.budget_rms is None else _percent(args.budget_rms),
+        rounding=args.rounding,
+        calibration=calibration,
+        search=not args.plain_coefficients,
+    )
+    report = json.dumps(summary(plan), indent=2) if args.json else table(plan)
+    try:
+        plan.save(args.out)
+    except OSError as exc:
+        raise UsageError(f"cannot write '{args.out}': {exc.strerror}", "--out") from None
+    print(report)
+    return 0
+
+
+def _named(values, option, parse) -> dict:
+    """{name: value} from [NAME=]VALUE items; the key None holds a value for all."""
+    result = {}
+    for item in values:
+        name, sep, text = item.rpartition("=")
+        key = name.strip() if sep else None
+        if sep and not key:
+            raise UsageError(f"'{item}' names no input or output before '='", option)
+        result[key] = parse(text.strip(), option)
+    return result
+
+
+def _range_value(text, option):
+    lo, sep, hi = text.partition(":")
+    try:
+        if sep:
+            return int(lo), int(hi)
+    except ValueError:
+        pass
+    raise UsageError(f"'{text}' is not LO:HI in integer counts", option)
+
+
+def _number(text, option):
+    try:
+        return float(text)
+    except ValueError:
+        raise UsageError(f"'{text}' is not a number", option) from None
+
+
+def _percent(text):
+    return _number(text.strip().removesuffix("%"), "--budget-rms")
+
+
+def summary(plan) -> dict:
+    """The plan's decisions and figures, without the coefficient tables."""
+    keys = (
+        "model_sha256 outputs coef_bits acc_bits output_ctype rounding shifts output_lsb float_rms "
+        "predicted_rms_deviation predicted_total_rms worst_case_deviation deviation_parts "
+        "accumulator_bound accumulator_headroom_bits budget measured moments_source coefficient_method"
+    ).split()
+    data = plan.to_dict()
+    return {"plan_sha256": plan.sha256, **{key: data[key] for key in keys}}
+
+
+def table(plan) -> str:
+    """The accuracy table: one line per output, then the measurements."""
+    n = len(plan.outputs)
+    budget = plan.budget or {}
+    calibration = (plan.measured or {}).get("calibration")
+    random = (plan.measured or {})["random"]
+    corners = (plan.measured or {}).get("corners")
+    lines = [
+        f"fixed point: {plan.coef_bits}-bit coefficients, {plan.acc_bits}-bit accumulator, "
+        f"{plan.output_ctype} outputs, rounding {plan.rounding}, coefficients {plan.coefficient_method}",
+        f"deviation = integer minus float estimator, physical units; moments: {_moments(plan)}",
+        _budget_line(budget),
+        "",
+    ]
+    header = ("output", "lsb", "shift", "own RMS", "dev RMS pred", "dev RMS meas", "worst case",
+              "budget", "margin", "headroom")
+    rows = [header]
+    for i, name in enumerate(plan.outputs):
+        limit = budget.get("limits", [None] * n)[i] if budget else None
+        margin = budget.get("margins", [None] * n)[i] if budget else None
+        rows.append((
+            name,
+            _g(plan.output_lsb[i]),
+            str(plan.shifts[i]),
+            _g(plan.float_rms[i] if plan.float_rms else None),
+            _g(plan.predicted_rms_deviation[i]),
+            _g(calibration["rms_deviation"][i] if calibration else None),
+            _g(plan.worst_case_deviation[i]),
+            _g(limit),
+            "-" if margin is None else f"{margin:+.3g}",
+            f"{plan.accumulator_headroom_bits[i]:.1f} bit",
+        ))
+    lines += _columns(rows)
+    lines += ["", "measured on:"]
+    if calibration:
+        lines.append(f"  calibration data: {calibration['rows']} rows in the box "
+                     f"({calibration['rows_outside_box']} outside, left out)")
+    else:
+        lines.append("  calibration data: none given (--data)")
+    lines.append(f"  {random['rows']} random box points: dev RMS predicted / measured, largest |dev|:")
+    for i, name in enumerate(plan.outputs):
+        corner = f", corners {_g(corners['max_deviation'][i])}" if corners else ""
+        lines.append(f"    {name}: {_g(random['predicted_rms_deviation'][i])} / {_g(random['rms_deviation'][i])}, "
+                     f"{_g(random['max_deviation'][i])}{corner} (bound {_g(plan.worst_case_deviation[i])})")
+    return "\n".join(lines)
+
+
+def _moments(plan) -> str:
+    if plan.moments_source == "uniform-box":
+        return "the model has none, so uniform over the box"
+    return "the model's calibration inputs"
+
+
+def _budget_line(budget) -> str:
+    if not budget:
+        return "budget: none (cheapest configuration that fits)"
+    what = ("worst-case deviation" if budget["kind"] == "worst-case"
+            else f"total RMS at most {budget['growth_percent']:g} % above the estimator's own")
+    verdict = "met" if budget["met"] else "NOT met (closest configuration shown)"
+    return f"budget: {what}{' (default)' if budget['default'] else ''}: {verdict}"
+
+
+def _g(value) -> str:
+    return "-" if value is None or (isinstance(value, float) and math.isnan(value)) else f"{value:.4g}"
+
+
+def _columns(rows) -> list[str]:
+    widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
+    return ["  ".join(cell.ljust(w) if k == 0 else cell.rjust(w) for k, (cell, w) in enumerate(zip(row, widths)))
+            for row in rows]
