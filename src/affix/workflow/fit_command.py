@@ -1,5 +1,115 @@
-"""affix fit (being built)."""
+"""affix fit: calibration data -> model file, with a short accuracy table."""
+from __future__ import annotations
+
+import json
+import os
+import sys
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+import affix
+from affix.errors import UsageError
+
+LARGEST_GAINS = 3  # how many gains per output the table shows
 
 
 def register(sub):
-    sub.add_parser("fit", help="(being built)")
+    parser = sub.add_parser(
+        "fit",
+        help="fit the linear estimator x = A*y + b from calibration data",
+        description="Fit gain and offset by least squares from a CSV (columns by header name), "
+        ".npy (columns named 0, 1, ...) or .npz file, streamed in constant memory.",
+    )
+    parser.add_argument("data", help="calibration data file (.csv, .npy or .npz)")
+    parser.add_argument("--inputs", required=True, help="comma-separated input columns (the raw readings y)")
+    parser.add_argument("--outputs", required=True, help="comma-separated output columns (the quantities x)")
+    parser.add_argument("--out", required=True, help="model file to write (JSON)")
+    parser.add_argument("--ridge", type=float, default=0.0, help="relative ridge: adds RIDGE*var(y_j) to each input's variance (default 0)")
+    parser.add_argument("--folds", type=int, default=5, help="k for k-fold cross-validation, 0 to skip (default 5)")
+    parser.add_argument("--drop-invalid", action="store_true", help="leave out rows holding NaN, infinite or empty values")
+    parser.add_argument("--json", action="store_true", help="print the summary as JSON instead of a table")
+    parser.set_defaults(run=run)
+
+
+def run(args) -> int:
+    out = Path(args.out)
+    if not out.parent.is_dir():
+        raise UsageError(f"folder '{out.parent}' does not exist", option="--out")
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        model = affix.fit(
+            args.data,
+            _names(args.inputs, "--inputs"),
+            _names(args.outputs, "--outputs"),
+            ridge=args.ridge,
+            folds=args.folds,
+            drop_invalid=args.drop_invalid,
+        )
+    for warning in caught:
+        print(f"affix: warning: {warning.message}", file=sys.stderr)
+    if model.dropped_rows:
+        print(f"affix: note: left out {model.dropped_rows} row(s) holding NaN, infinite or empty values", file=sys.stderr)
+    _save_atomically(model, out)
+    summary = summarise(model, out)
+    print(json.dumps(summary, indent=2) if args.json else format_table(summary))
+    return 0
+
+
+def summarise(model, out) -> dict:
+    rows = []
+    for i, name in enumerate(model.outputs):
+        order = np.argsort(-np.abs(model.gain[i]))[:LARGEST_GAINS]
+        rows.append(
+            {
+                "output": name,
+                "rms": float(model.rms[i]),
+                "cv_rms": None if model.cv_rms is None else float(model.cv_rms[i]),
+                "largest_gains": [{"input": model.inputs[j], "gain": float(model.gain[i, j])} for j in order],
+            }
+        )
+    return {
+        "model": str(out),
+        "n_samples": model.n_samples,
+        "dropped_rows": model.dropped_rows,
+        "inputs": list(model.inputs),
+        "outputs": list(model.outputs),
+        "ridge": model.ridge,
+        "folds": model.folds,
+        "condition_number": model.condition_number,
+        "data_sha256": model.data_sha256,
+        "per_output": rows,
+    }
+
+
+def format_table(summary) -> str:
+    width = max(len("output"), *(len(r["output"]) for r in summary["per_output"]))
+    condition = summary["condition_number"]
+    lines = [
+        f"fitted {len(summary['outputs'])} output(s) from {len(summary['inputs'])} input(s) on "
+        f"{summary['n_samples']} rows; condition number {'inf' if condition is None else f'{condition:.3g}'}",
+        f"{'output':<{width}}  {'rms':>11}  {'cv rms':>11}  largest gains",
+    ]
+    for r in summary["per_output"]:
+        cv = "-" if r["cv_rms"] is None else f"{r['cv_rms']:.5g}"
+        gains = ", ".join(f"{g['input']} {g['gain']:+.4g}" for g in r["largest_gains"])
+        lines.append(f"{r['output']:<{width}}  {r['rms']:>11.5g}  {cv:>11}  {gains}")
+    lines.append(f"model written to {summary['model']}")
+    return "\n".join(lines)
+
+
+def _names(text: str, option: str) -> list[str]:
+    names = [name.strip() for name in text.split(",")]
+    if not all(names):
+        raise UsageError(f"empty column name in '{text}'", option=option)
+    return names
+
+
+def _save_atomically(model, path: Path) -> None:
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    try:
+        model.save(temporary)
+        os.replace(temporary, path)
+    finally:
+        temporary.unlink(missing_ok=True)
