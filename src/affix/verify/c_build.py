@@ -115,16 +115,19 @@ def default_cache_dir() -> Path:
     return base / "affix" / "cffi"
 
 
-def build_driver(emit_dir, manifest, out_dir, *, extra_flags=()) -> Path:
-    """Compile the emitted C with a stand-alone vector driver (for sanitizer runs)."""
+def build_driver(emit_dir, manifest, out_dir, *, extra_flags=(), selftest: bool = False) -> Path:
+    """Compile the emitted C with a stand-alone vector driver (for sanitizer
+    runs); with ``selftest`` the emitted self-test is compiled in and
+    ``DRIVER selftest`` runs it."""
     signature = Signature.from_manifest(manifest)
     source, header = _emitted_sources(Path(emit_dir), manifest)
     out_dir = Path(out_dir)
     driver = out_dir / f"{signature.name}_driver.c"
-    driver.write_text(render("c/vector_driver.c.jinja", **signature.template_context))
+    driver.write_text(render("c/vector_driver.c.jinja", selftest=selftest, **signature.template_context))
     exe = out_dir / f"{signature.name}_driver"
+    defines = [f"-D{signature.name.upper()}_SELFTEST"] if selftest else []
     _run_compiler(
-        [_compiler(), *COMPILE_FLAGS, *extra_flags, f"-I{header.parent}", str(source), str(driver), "-o", str(exe)]
+        [_compiler(), *COMPILE_FLAGS, *defines, *extra_flags, f"-I{header.parent}", str(source), str(driver), "-o", str(exe)]
     )
     return exe
 
@@ -180,3 +183,12 @@ def _run_compiler(command: list[str]) -> None:
     done = subprocess.run(command, capture_output=True, text=True, timeout=600)
     if done.returncode != 0:
         raise ToolError(f"compiling failed: {' '.join(command)}: {done.stderr.strip()[-2000:]}")
+
+
+def run_selftest(exe) -> int:
+    """The failure count of the emitted self-test, from a driver built with ``selftest=True``."""
+    done = subprocess.run([str(exe), "selftest"], capture_output=True, text=True, timeout=60)
+    words = done.stdout.split()
+    if done.returncode not in (0, 1) or len(words) != 1 or not words[0].isdigit():
+        raise ToolError(f"{Path(exe).name} selftest exited with status {done.returncode}: {done.stderr.strip()[-2000:]}")
+    return int(words[0])

@@ -1,0 +1,211 @@
+"""The C target: what the files contain, that they compile cleanly as C99 and
+C++11 on hosts and MCU targets, and that the built-in self-test works.
+
+Sources: the C99 standard (ISO/IEC 9899:1999) for the rules the code relies
+on, GCC as the reference compiler for its diagnostics (-Wconversion etc.),
+arm-none-eabi-gcc (32-bit int, Cortex-M) and avr-gcc (16-bit int: C99
+§5.2.4.2.1 only guarantees int >= 16 bits) as real MCU compilers.
+"""
+from __future__ import annotations
+
+import json
+import re
+import subprocess
+
+import pytest
+
+from affix.emit.c import render_c
+from affix.emit.context import CAUTION
+from affix.emit.writer import emit
+from affix.errors import UsageError
+from affix.verify.c_build import build_driver, run_selftest
+from conftest import require, run_affix
+from plans import random_plan
+
+C_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
+CXX_FLAGS = ["-x", "c++", "-std=c++11", "-Wall", "-Wextra", "-Werror"]
+
+PLANS = {  # a spread of types: signed/unsigned inputs, 8..32-bit coefficients, 32/64-bit accumulators
+    "int16-in int16-out acc32": dict(ranges="int16", coef_bits=16, acc_bits=32),
+    "uint8-in int32-out acc32": dict(ranges="uint8", coef_bits=8, acc_bits=32, output_ctype="int32_t"),
+    "uint32-in int16-out acc64 saturating": dict(ranges="uint32", coef_bits=32, acc_bits=64, gain_scale=1e4),
+    "int32-in int32-out acc64 floor": dict(ranges="int32", coef_bits=16, acc_bits=64, output_ctype="int32_t",
+                                           rounding="floor"),
+    "int8-in tiny gain": dict(ranges="int8", coef_bits=8, acc_bits=32, gain_scale=1e-6),
+}
+VARIANTS = [("int", "table"), ("int", "unrolled"), ("float32", "table"), ("float32", "unrolled")]
+
+
+def _emit(tmp_path, plan_kind, arith, style, name="probe"):
+    plan = random_plan(7, 4, 3, **PLANS[plan_kind])
+    out = tmp_path / f"{arith}-{style}"
+    manifest = emit(plan, lang="c", arith=arith, style=style, name=name, out_dir=out)
+    return plan, out, manifest
+
+
+def _compile(compiler, flags, source, tmp_path, *extra):
+    done = subprocess.run(
+        [compiler, *flags, *extra, "-c", str(source), "-o", str(tmp_path / "probe.o")],
+        capture_output=True, text=True,
+    )
+    assert done.returncode == 0, done.stderr
+
+
+@pytest.mark.parametrize("plan_kind", PLANS)
+@pytest.mark.parametrize("arith,style", VARIANTS)
+def test_compiles_cleanly_as_c99_and_cxx11(tmp_path, plan_kind, arith, style):
+    gcc, gxx = require("gcc"), require("g++")
+    _, out, _ = _emit(tmp_path, plan_kind, arith, style)
+    for level in ("-O0", "-O2"):
+        _compile(gcc, C_FLAGS, out / "probe.c", tmp_path, level, "-DPROBE_SELFTEST")
+        _compile(gxx, CXX_FLAGS, out / "probe.c", tmp_path, level, "-DPROBE_SELFTEST")
+
+
+@pytest.mark.parametrize("arith,style", VARIANTS)
+def test_compiles_cleanly_for_cortex_m(tmp_path, arith, style):
+    # 32-bit int, 64-bit accumulators through libgcc; float through the FPU or soft float.
+    cc = require("arm-none-eabi-gcc")
+    for plan_kind in ("int16-in int16-out acc32", "uint32-in int16-out acc64 saturating"):
+        _, out, _ = _emit(tmp_path, plan_kind, arith, style)
+        for cpu in (["-mcpu=cortex-m0", "-mthumb"], ["-mcpu=cortex-m4", "-mthumb", "-mfloat-abi=hard", "-mfpu=fpv4-sp-d16"]):
+            _compile(cc, C_FLAGS, out / "probe.c", tmp_path, "-O2", "-ffreestanding", "-DPROBE_SELFTEST", *cpu)
+
+
+@pytest.mark.parametrize("style", ["table", "unrolled"])
+def test_compiles_cleanly_where_int_is_16_bits(tmp_path, style):
+    # avr-gcc: int is 16 bits, so any product not widened to the accumulator
+    # first, or any implicit narrowing, shows up as a -Wconversion error.
+    cc = require("avr-gcc")
+    for plan_kind in PLANS:
+        _, out, _ = _emit(tmp_path, plan_kind, "int", style)
+        _compile(cc, C_FLAGS, out / "probe.c", tmp_path, "-mmcu=atmega328p", "-O2", "-DPROBE_SELFTEST")
+
+
+@pytest.mark.parametrize("arith,style", VARIANTS)
+def test_selftest_passes_and_catches_a_wrong_constant(tmp_path, arith, style):
+    require("gcc")
+    _, out, manifest = _emit(tmp_path, "int16-in int16-out acc32", arith, style)
+    exe = build_driver(out, manifest, tmp_path, selftest=True)
+    assert run_selftest(exe) == 0
+
+    source = (out / "probe.c").read_text()
+    # Change the first constant of the first output's sum: the self-test must notice.
+    if arith == "float32":
+        tampered = re.sub(r"(-?\d\.\d*e[+-]\d\d)f", lambda m: f"{float(m.group(1)) * 1.5:.8e}f", source, count=1)
+    else:
+        pattern = r"(demo|probe)_coef\[.*?\{ (-?\d+)" if style == "table" else r"\+ INT32_C\((-?\d+)\)"
+        match = re.search(pattern, source, re.S)
+        number = match.group(match.lastindex)
+        start = match.start(match.lastindex)
+        tampered = source[:start] + str(int(number) // 2 + 77) + source[start + len(number):]  # stays in range
+    assert tampered != source
+    (out / "probe.c").write_text(tampered)
+    exe = build_driver(out, manifest, tmp_path, selftest=True)
+    assert run_selftest(exe) > 0
+
+
+def test_int_header_states_the_contract(tmp_path):
+    plan, out, _ = _emit(tmp_path, "int16-in int16-out acc32", "int", "table")
+    header = (out / "probe.h").read_text()
+    source = (out / "probe.c").read_text()
+    assert header.startswith("/* probe.h")
+    usage = header.index("USAGE")
+    assert usage < header.index("CAUTION") < header.index("WHAT IT COMPUTES") < header.index("#ifndef PROBE_H")
+    flat = " ".join(header.replace(" * ", " ").split())
+    for sentence in CAUTION:
+        assert " ".join(sentence.split()) in flat
+    assert plan.model_sha256 in header and plan.sha256 in header and plan.tool_version in header
+    assert "C99 §6.5.7" in header  # the implementation-defined right shift is named and avoided
+    assert 'extern "C" {' in header
+    for i, lsb in enumerate(plan.output_lsb):
+        assert f"[{i}] x{i}: LSB {lsb:.9g} (Q7.8)" in header  # lsb 2**-8 in int16_t is Q7.8
+    for j, (lo, hi) in enumerate(plan.input_ranges):
+        assert f"[{j}] y{j}: {lo} .. {hi}" in header
+
+
+@pytest.mark.parametrize("arith,style", VARIANTS)
+def test_only_freestanding_headers_and_no_float_in_int_code(tmp_path, arith, style):
+    _, out, _ = _emit(tmp_path, "uint32-in int16-out acc64 saturating", arith, style)
+    for filename in ("probe.h", "probe.c"):
+        text = (out / filename).read_text()
+        code = re.sub(r"/\*.*?\*/", "", text, flags=re.S)  # comments may name anything
+        selftest_free = code.split("#ifdef PROBE_SELFTEST")[0]
+        includes = re.findall(r"#include\s*(\S+)", code)
+        allowed = {'"probe.h"', "<stdint.h>"} | ({"<float.h>"} if arith == "float32" else set())
+        assert set(includes) <= allowed, includes
+        for word in ("malloc", "free", "printf", "math.h", "double", "static int", "volatile"):
+            assert not re.search(rf"\b{re.escape(word)}\b", selftest_free), word
+        if arith == "int":
+            assert not re.search(r"\bfloat\b", code)
+            assert not re.search(r"\d\.\d|\de[+-]\d", code)  # no floating constants either
+        if style == "unrolled" and filename == "probe.c":
+            assert "static const" not in selftest_free  # immediates, no tables
+
+
+def test_table_style_uses_static_const_tables(tmp_path):
+    _, out, _ = _emit(tmp_path, "int16-in int16-out acc32", "int", "table")
+    source = (out / "probe.c").read_text()
+    assert re.search(r"static const int16_t probe_coef\[PROBE_N_OUTPUTS\]\[PROBE_N_INPUTS\]", source)
+    assert re.search(r"static const int32_t probe_offset\[", source)
+
+
+def test_most_negative_constants_are_spelt_safely(tmp_path):
+    # C99 §6.4.4.1: -2147483648 is minus applied to a constant too big for
+    # int32_t's type; the emitter writes (-2147483647 - 1).
+    plan = random_plan(5, 2, 1, ranges="int32", coef_bits=32, acc_bits=64, output_ctype="int32_t")
+    plan = type(plan)(**{**plan.__dict__, "input_ranges": ((-(2**31), 2**31 - 1), plan.input_ranges[1]),
+                         "coefficients": ((1, 0),), "offsets": (0,), "shifts": (0,), "gain": ((1.0, 0.0),)})
+    plan.validate()
+    for style in ("table", "unrolled"):
+        source = render_c(plan, "probe", style=style)["probe.c"]
+        assert "2147483648" not in source
+        assert "-2147483647 - 1" in source
+
+
+def test_manifest_describes_the_emitted_function(tmp_path):
+    plan, out, manifest = _emit(tmp_path, "uint8-in int32-out acc32", "int", "unrolled")
+    on_disk = json.loads((out / "probe.manifest.json").read_text())
+    assert on_disk == manifest
+    assert manifest["function"] == "probe_estimate"
+    assert manifest["input_ctype"] == "uint8_t" and manifest["output_ctype"] == "int32_t"
+    assert manifest["inputs"] == list(plan.inputs) and manifest["outputs"] == list(plan.outputs)
+    assert manifest["input_ranges"] == [list(r) for r in plan.input_ranges]
+    assert manifest["output_lsb"] == list(plan.output_lsb)
+    for key in ("coefficients", "offsets", "shifts", "acc_bits", "coef_bits", "rounding"):
+        assert manifest[key] == plan.to_dict()[key], key
+    assert manifest["files"] == {"c": ["probe.c", "probe.h"]}
+    assert manifest["plan_sha256"] == plan.sha256
+
+
+def test_float32_code_and_manifest(tmp_path):
+    plan, out, manifest = _emit(tmp_path, "int16-in int16-out acc32", "float32", "table")
+    assert manifest["float_gain"] == [list(row) for row in plan.gain]
+    assert "void probe_estimate(const int16_t y[PROBE_N_INPUTS], float x[PROBE_N_OUTPUTS]);" in (out / "probe.h").read_text()
+    header = (out / "probe.h").read_text()
+    assert "-ffp-contract=off" in header and "-ffast-math" in header and "FLT_EVAL_METHOD" in header
+
+
+def test_unsafe_output_name_never_reaches_a_file(tmp_path):
+    plan = random_plan(2)
+    plan = type(plan)(**{**plan.__dict__, "outputs": ("x0", "evil*/ int y;")})
+    plan.save(tmp_path / "plan.json")
+    done = run_affix("emit", tmp_path / "plan.json", "--lang", "c", "--name", "probe", "--out", tmp_path / "out")
+    assert done.returncode == 2
+    assert "output name 'evil*/ int y;'" in done.stderr
+    assert not (tmp_path / "out").exists()
+
+
+def test_float32_micropython_is_refused_before_writing(tmp_path):
+    with pytest.raises(UsageError, match="--arith"):
+        emit(random_plan(2), lang="all", arith="float32", name="probe", out_dir=tmp_path / "out")
+    assert not (tmp_path / "out").exists()
+
+
+def test_input_beyond_a_32_bit_accumulator_is_refused():
+    # Converting 3e9 to int32_t would be implementation-defined (C99 §6.3.1.3p3).
+    plan = random_plan(2, 2, 1, ranges="uint16")
+    plan = type(plan)(**{**plan.__dict__, "input_ranges": ((0, 3 * 10**9), plan.input_ranges[1]),
+                         "coefficients": ((0, 1),)})
+    plan.validate()
+    with pytest.raises(UsageError, match="beyond the 32-bit accumulator"):
+        render_c(plan, "probe")
