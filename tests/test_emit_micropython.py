@@ -12,6 +12,8 @@ from __future__ import annotations
 
 import ast
 import itertools
+import re
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -231,7 +233,13 @@ def test_integer_only_and_constants_through_const(tmp_path):
 
 
 def test_header_states_the_contract(tmp_path):
-    plan = random_plan(**PLANS["int16-box"][0])
+    plan = replace(
+        random_plan(**PLANS["int16-box"][0]),
+        float_rms=(0.125, 0.25),
+        predicted_rms_deviation=(0.001, 0.002),
+        predicted_total_rms=(0.126, 0.251),
+        worst_case_deviation=(0.0039, 0.0078),
+    )
     text = emit(plan, tmp_path).read_text()
     head = text.split("\nfrom micropython import const")[0]
     assert all(line.startswith("#") or not line for line in head.splitlines())
@@ -243,7 +251,32 @@ def test_header_states_the_contract(tmp_path):
         assert f"{name}: {lo} .. {hi}" in head
     for name, shift in zip(plan.outputs, plan.shifts):
         assert f"{name}: lsb 0.00390625 = 2^-8 (Q7.8); s = {shift}" in head
+    assert "rms: float fit 0.125, integer deviation 0.001, total 0.126; worst-case deviation 0.0039" in head
+    assert "rms: float fit 0.25, integer deviation 0.002, total 0.251; worst-case deviation 0.0078" in head
     assert "round half up" in head and "int16_t, -32768 .. 32767" in head
     names = module_constants(text)
     assert ast.literal_eval(names["INPUTS"]) == plan.inputs
     assert ast.literal_eval(names["OUTPUTS"]) == plan.outputs
+
+
+def test_a_wrong_constant_fails_the_self_test_in_the_runtime(tmp_path):
+    require("micropython")
+    plan = random_plan(**PLANS["int16-box"][0])
+    path = emit(plan, tmp_path)
+    lines = path.read_text().splitlines()
+    first = lines.index("_CHECKS = (") + 1
+    # Change the last expected output of the first known vector by one.
+    lines[first] = re.sub(r"(\d+)\)\),$", lambda m: f"{int(m.group(1)) + 1})),", lines[first])
+    assert lines[first] != path.read_text().splitlines()[first]
+    path.write_text("\n".join(lines) + "\n")
+    with pytest.raises(VerificationError, match=r"self_test\(\) is False"):
+        run_micropython(path, vectors_for(plan)[:10])
+
+
+def test_missing_runtime_is_a_tool_error(tmp_path, monkeypatch):
+    monkeypatch.setattr("affix.verify.micropython_run.shutil.which", lambda *args, **kwargs: None)
+    path = emit(random_plan(**PLANS["int16-box"][0]), tmp_path)
+    with pytest.raises(ToolError, match="'micropython' not found"):
+        run_micropython(path, np.zeros((1, 3), dtype=np.int64))
+    with pytest.raises(ToolError, match="'mpy-cross' not found"):
+        cross_compile(path)
