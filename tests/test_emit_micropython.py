@@ -34,7 +34,7 @@ from affix.emit.micropython import (
     viper_fits,
 )
 from affix.emit.templates import render
-from affix.errors import ToolError, VerificationError
+from affix.errors import ToolError, UsageError, VerificationError
 from affix.plan import Plan
 from affix.verify.micropython_run import cross_compile, run_micropython
 
@@ -280,3 +280,10 @@ def test_missing_runtime_is_a_tool_error(tmp_path, monkeypatch):
         run_micropython(path, np.zeros((1, 3), dtype=np.int64))
     with pytest.raises(ToolError, match="'mpy-cross' not found"):
         cross_compile(path)
+
+
+@pytest.mark.parametrize("bad", ["x */ import os", "print", "const", "ok\nimport os"])
+def test_names_are_checked_before_anything_is_rendered(bad):
+    plan = replace(random_plan(**PLANS["int16-box"][0]), outputs=(bad, "x1"))
+    with pytest.raises(UsageError):
+        render_micropython(plan, "est")

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from affix.arithmetic import rounding_constant
 from affix.emit.context import build_context
+from affix.emit.names import check_names
 from affix.emit.templates import render
 
 # Small ints of 32-bit ports (the MCUs): 31-bit signed, from memory.  Checked
@@ -30,7 +31,9 @@ MODULE_TEMPLATE = "micropython/module.py.jinja"
 
 
 def render_micropython(plan, name: str) -> dict[str, str]:
-    """The emitted files: ``{"NAME.py": text}``."""
+    """The emitted files: ``{"NAME.py": text}``.  Names are checked here too:
+    they reach the file as identifiers and in comments."""
+    check_names(name, plan.inputs, plan.outputs)
     return {f"{name}.py": render(MODULE_TEMPLATE, **micropython_context(plan, name))}
 
 
