@@ -58,6 +58,24 @@ def test_json_summary_matches_the_written_plan(model_file, tmp_path):
     assert summary["output_lsb"][0] == 0.001
 
 
+def test_data_measures_the_integer_reference_on_calibration_rows(model_file, tmp_path):
+    rng = np.random.default_rng(1)
+    rows = np.clip(rng.normal(1500, 400, size=(3000, 3)), 0, 4095).round()
+    rows[:5, 0] = 5000  # five rows beyond the box: counted, left out
+    data = tmp_path / "cal.csv"
+    lines = ["temp,bridge_b,noise,bridge_a"] + [f"{c},{b},0.5,{a}" for a, b, c in rows]
+    data.write_text("\n".join(lines) + "\n")
+    out = tmp_path / "plan.json"
+    result = run_affix("quantize", model_file, "--range", "0:4095", "--data", data, "--out", out)
+    assert result.returncode == 0, result.stderr
+    measured = Plan.load(out).measured["calibration"]
+    assert measured["rows"] == 2995 and measured["rows_outside_box"] == 5
+    assert "2995 rows in the box (5 outside, left out)" in result.stdout
+    missing = run_affix("quantize", model_file, "--range", "0:4095", "--data", tmp_path / "none.csv",
+                        "--out", tmp_path / "other.json")
+    assert missing.returncode == 2 and "none.csv" in missing.stderr and not (tmp_path / "other.json").exists()
+
+
 BAD_INPUT = {
     "inverted range": (["--range", "4095:0"], 2, "inverted"),
     "no input type holds the box": (["--range", "-1:4294967295"], 2, "no single input type"),

@@ -41,6 +41,8 @@ def register(sub):
     parser.add_argument("--plain-coefficients", action="store_true",
                         help="round each coefficient on its own instead of the error-feedback search")
     parser.add_argument("--data", metavar="CALIB_FILE", help="calibration rows to measure the integer reference on")
+    parser.add_argument("--drop-invalid", action="store_true",
+                        help="leave out calibration rows holding NaN, infinite or empty values")
     parser.add_argument("--out", required=True, metavar="PLAN_JSON", help="where to write the plan")
     parser.add_argument("--json", action="store_true", help="print a JSON summary instead of the table")
     parser.set_defaults(run=run)
@@ -55,7 +57,7 @@ def run(args) -> int:
     if args.data:
         from affix.intake import read_chunks
 
-        calibration = read_chunks(args.data, list(model.inputs))
+        calibration = read_chunks(args.data, list(model.inputs), drop_invalid=args.drop_invalid)
     plan = plan_fixed_point(
         model,
         ranges,
