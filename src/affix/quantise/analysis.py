@@ -22,10 +22,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from affix.quantise.box import reach
-from affix.quantise.design import Configuration, OutputDesign, design_output
-from affix.quantise.lsb import design_at_finest_lsb
-from affix.quantise.shift import Infeasible
 
 
 @dataclass(frozen=True, eq=False)
@@ -54,25 +50,6 @@ class Accuracy:
     deviation: tuple[float, ...]  # predicted RMS deviation, integer from float
     total: tuple[float, ...] | None  # predicted RMS of the integer estimator
     worst_case: tuple[float, ...]
-
-
-def design_configuration(problem: Problem, config: Configuration) -> tuple[OutputDesign, ...]:
-    """Every output designed in this configuration; Infeasible names the output at fault."""
-    too_wide = [name for name, r in zip(problem.inputs, reach(problem.box)) if r >= 2.0 ** (config.acc_bits - 1)]
-    if too_wide:
-        raise Infeasible(f"input '{too_wide[0]}' does not fit a {config.acc_bits}-bit accumulator")
-    designs = []
-    for name, gain, offset, lsb in zip(problem.outputs, problem.gain, problem.offset, problem.lsb):
-        arguments = (config, problem.box, problem.moments, problem.rounding, problem.search)
-        try:
-            if lsb is None:
-                designs.append(design_at_finest_lsb(gain, float(offset), *arguments))
-            else:
-                designs.append(design_output(gain, float(offset), lsb, *arguments))
-        except Infeasible as exc:
-            at = "" if lsb is None else f" at lsb {lsb:g}"
-            raise Infeasible(f"output '{name}'{at}: {exc}") from None
-    return tuple(designs)
 
 
 def accuracy(problem: Problem, designs) -> Accuracy:

@@ -32,7 +32,6 @@ class OutputDesign:
     offset: int  # c, accumulator scale
     coefficients: tuple[int, ...]
     accumulator_bound: int
-    searched: bool  # the error-feedback search beat plain rounding
     error: np.ndarray  # integers less real targets, (offset, coefficients...), accumulator counts
     plain_error: np.ndarray  # the same for plain rounding
     rounding_rms: float  # physical units
@@ -72,7 +71,6 @@ def design_output(gain, offset, lsb, config, box, moments, rounding, search=True
         offset=chosen[0],
         coefficients=tuple(chosen[1:]),
         accumulator_bound=accumulator_bound(chosen[1:], chosen[0], shift, box, rounding),
-        searched=chosen != plain,
         error=error,
         plain_error=targets.plain_error,
         rounding_rms=lsb * math.sqrt(shift_error(shift, rounding).variance),

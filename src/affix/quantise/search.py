@@ -14,9 +14,11 @@ from itertools import product
 
 from affix.arithmetic import OUTPUT_CTYPES
 from affix.errors import BudgetError, UsageError
-from affix.quantise.analysis import Accuracy, Problem, accuracy, design_configuration
+from affix.quantise.analysis import Accuracy, Problem, accuracy
+from affix.quantise.box import reach
 from affix.quantise.budget import WORST_CASE, Budget
-from affix.quantise.design import Configuration, OutputDesign
+from affix.quantise.design import Configuration, OutputDesign, design_output
+from affix.quantise.lsb import design_at_finest_lsb
 from affix.quantise.shift import Infeasible
 
 COEF_BITS = (8, 16, 32)
@@ -37,6 +39,25 @@ def configurations(coef_bits=None, acc_bits=None, output_ctype=None) -> list[Con
         tuple(OUTPUT_CTYPES) if output_ctype is None else (output_ctype,),
     )
     return sorted((Configuration(*c) for c in grid), key=lambda c: c.cost)
+
+
+def design_configuration(problem: Problem, config: Configuration) -> tuple[OutputDesign, ...]:
+    """Every output designed in this configuration; Infeasible names the output at fault."""
+    too_wide = [name for name, r in zip(problem.inputs, reach(problem.box)) if r >= 2.0 ** (config.acc_bits - 1)]
+    if too_wide:
+        raise Infeasible(f"input '{too_wide[0]}' does not fit a {config.acc_bits}-bit accumulator")
+    designs = []
+    for name, gain, offset, lsb in zip(problem.outputs, problem.gain, problem.offset, problem.lsb):
+        arguments = (config, problem.box, problem.moments, problem.rounding, problem.search)
+        try:
+            if lsb is None:
+                designs.append(design_at_finest_lsb(gain, float(offset), *arguments))
+            else:
+                designs.append(design_output(gain, float(offset), lsb, *arguments))
+        except Infeasible as exc:
+            at = "" if lsb is None else f" at lsb {lsb:g}"
+            raise Infeasible(f"output '{name}'{at}: {exc}") from None
+    return tuple(designs)
 
 
 def choose(problem: Problem, configs, budget: Budget | None) -> Choice:

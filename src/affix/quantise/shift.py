@@ -21,23 +21,22 @@ class Infeasible(Exception):
     """This output cannot be built in this configuration at this lsb; the message says why."""
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Targets:
-    """Real accumulator-scale values at one shift, (offset, coefficients...) in z order."""
+    """Plainly rounded integers at one shift, (offset, coefficients...) in z order."""
 
     shift: int
-    values: np.ndarray  # (1 + n_inputs,)
-    plain: tuple[int, ...]  # each rounded half-up on its own
-    plain_error: np.ndarray  # plain - values, computed without cancellation
+    plain: tuple[int, ...]  # each real target rounded half-up on its own
+    plain_error: np.ndarray  # plain less the real targets, accumulator counts
 
 
 def targets_at(g: np.ndarray, b: float, shift: int, rounding: str) -> Targets:
     scale = 2.0**shift
     values = np.concatenate(([b * scale - shift_error(shift, rounding).mean * scale], g * scale))
-    whole = np.floor(values)
-    up = values - whole >= 0.5
-    plain = tuple(int(w) + int(u) for w, u in zip(whole, up))
-    return Targets(shift, values, plain, up - (values - whole))
+    rounded = round_half_up(values)
+    # rounded - values is exact: the two are within 1/2 of each other, so
+    # within a factor of two wherever they are not both below 1 (Sterbenz).
+    return Targets(shift, tuple(int(v) for v in rounded), rounded - values)
 
 
 def fits(plain, shift, box, coef_bits, acc_bits, rounding) -> str | None:

@@ -127,35 +127,33 @@ def summary(plan) -> dict:
 
 def table(plan) -> str:
     """The accuracy table: one line per output, then the measurements."""
-    n = len(plan.outputs)
-    budget = plan.budget or {}
-    calibration = (plan.measured or {}).get("calibration")
-    random = (plan.measured or {})["random"]
-    corners = (plan.measured or {}).get("corners")
+    budget = plan.budget
+    calibration = plan.measured.get("calibration")
+    random, corners = plan.measured["random"], plan.measured.get("corners")
     lines = [
         f"fixed point: {plan.coef_bits}-bit coefficients, {plan.acc_bits}-bit accumulator, "
         f"{plan.output_ctype} outputs, rounding {plan.rounding}, coefficients {plan.coefficient_method}",
-        f"deviation = integer minus float estimator, physical units; moments: {_moments(plan)}",
+        f"dev = integer minus float estimator, physical units; moments: {_moments(plan)}",
         _budget_line(budget),
         "",
     ]
-    header = ("output", "lsb", "shift", "own RMS", "dev RMS pred", "dev RMS meas", "worst case",
-              "budget", "margin", "headroom")
-    rows = [header]
+    rows = [("output", "lsb", "shift", "own RMS", "total RMS", "dev RMS", "dev RMS", "worst |dev|",
+             "budget", "margin", "headroom"),
+            ("", "", "", "", "predicted", "predicted", "measured", "bound", "", "", "acc bits")]
     for i, name in enumerate(plan.outputs):
-        limit = budget.get("limits", [None] * n)[i] if budget else None
-        margin = budget.get("margins", [None] * n)[i] if budget else None
+        margin = budget["margins"][i] if budget else None
         rows.append((
             name,
             _g(plan.output_lsb[i]),
             str(plan.shifts[i]),
             _g(plan.float_rms[i] if plan.float_rms else None),
+            _g(plan.predicted_total_rms[i] if plan.predicted_total_rms else None),
             _g(plan.predicted_rms_deviation[i]),
             _g(calibration["rms_deviation"][i] if calibration else None),
             _g(plan.worst_case_deviation[i]),
-            _g(limit),
+            _g(budget["limits"][i] if budget else None),
             "-" if margin is None else f"{margin:+.3g}",
-            f"{plan.accumulator_headroom_bits[i]:.1f} bit",
+            f"{plan.accumulator_headroom_bits[i]:.1f}",
         ))
     lines += _columns(rows)
     lines += ["", "measured on:"]
@@ -181,8 +179,8 @@ def _moments(plan) -> str:
 def _budget_line(budget) -> str:
     if not budget:
         return "budget: none (cheapest configuration that fits)"
-    what = ("worst-case deviation" if budget["kind"] == "worst-case"
-            else f"total RMS at most {budget['growth_percent']:g} % above the estimator's own")
+    what = ("worst |dev| bound at most the budget" if budget["kind"] == "worst-case"
+            else f"total RMS at most {budget['growth_percent']:g} % above the estimator's own (budget column)")
     verdict = "met" if budget["met"] else "NOT met (closest configuration shown)"
     return f"budget: {what}{' (default)' if budget['default'] else ''}: {verdict}"
 
