@@ -12,6 +12,7 @@ import warnings
 from collections.abc import Mapping
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from affix.errors import DataError, FitError, UsageError
 from affix.fit import conditioning
@@ -61,7 +62,11 @@ def fit(
         raise UsageError(f"must be 0 (no cross-validation) or at least 2, got {folds}", option="folds")
     inputs, outputs, stream = _open(data, inputs, outputs, chunk_rows, drop_invalid)
     m, width = len(inputs), len(inputs) + len(outputs)
-    parts = accumulate(stream, width, folds)
+    # The products here are skinny (rows x a few columns): one BLAS thread
+    # does them at memory speed, and more would spin against the threads that
+    # parse and hash the file, which on a small machine costs many times over.
+    with threadpool_limits(limits=1, user_api="blas"):
+        parts = accumulate(stream, width, folds)
     moments = merge_all(parts, width)
     _check_rows(moments, inputs, stream.path)
     r = correlation(moments, m)

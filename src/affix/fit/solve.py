@@ -5,9 +5,10 @@ D = sqrt(diag(S_yy)) the input scales, the gain solves
 
     (R + ridge * I) Z = D^-1 S_yx,   R = D^-1 S_yy D^-1,   A = (D^-1 Z)^T
 
-by Cholesky: no inverse is formed, and working on the correlation matrix R
-removes the ill-conditioning that mere offsets and units (ADC counts next to
-volts) would add.  Equivalently A = S_xy (S_yy + ridge * diag(S_yy))^-1: the
+by Cholesky (R + ridge*I = L L^T, then two triangular systems): no inverse
+is formed, and working on the correlation matrix R removes the
+ill-conditioning that mere offsets and units (ADC counts next to volts)
+would add.  Equivalently A = S_xy (S_yy + ridge * diag(S_yy))^-1: the
 ridge is relative to each input's own variance, so it does not depend on the
 inputs' units nor on the number of rows.  The offset is b = mean_x - A mean_y.
 """
@@ -16,7 +17,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.linalg import cho_factor, cho_solve
 
 from affix.statistics import Moments, merge_all
 
@@ -42,8 +42,9 @@ def solve(moments: Moments, n_inputs: int, ridge: float = 0.0) -> Solution:
     m = n_inputs
     d = input_scales(moments, m)
     rhs = moments.scatter[:m, m:] / d[:, None]
-    factor = cho_factor(correlation(moments, m) + ridge * np.eye(m), lower=True, check_finite=False)
-    gain = (cho_solve(factor, rhs, check_finite=False) / d[:, None]).T
+    lower = np.linalg.cholesky(correlation(moments, m) + ridge * np.eye(m))
+    z = np.linalg.solve(lower.T, np.linalg.solve(lower, rhs))
+    gain = (z / d[:, None]).T
     offset = moments.mean[m:] - gain @ moments.mean[:m]
     return Solution(gain, offset)
 

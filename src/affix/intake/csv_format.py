@@ -13,7 +13,6 @@ import csv
 import re
 
 import numpy as np
-import pandas as pd
 
 from affix.errors import DataError
 
@@ -34,6 +33,8 @@ def column_names(path) -> list[str]:
 
 def raw_chunks(path, columns, chunk_rows):
     """Float64 arrays (k, len(columns)) in file order; NaN marks missing cells."""
+    import pandas as pd  # here, not at the top: only CSV needs it, and it is slow to import
+
     header = column_names(path)
     positions = [header.index(name) for name in columns]
     used = sorted(set(positions))
@@ -63,6 +64,8 @@ def raw_chunks(path, columns, chunk_rows):
 
 
 def _numeric(frame, path, first_row, names) -> np.ndarray:
+    import pandas as pd
+
     for position, name in enumerate(names):
         column = frame.iloc[:, position]
         if column.dtype.kind in "iuf":
