@@ -287,3 +287,12 @@ def test_names_are_checked_before_anything_is_rendered(bad):
     plan = replace(random_plan(**PLANS["int16-box"][0]), outputs=(bad, "x1"))
     with pytest.raises(UsageError):
         render_micropython(plan, "est")
+
+
+def test_a_module_that_raises_is_a_verification_failure(tmp_path):
+    require("micropython")
+    plan = random_plan(**PLANS["int16-box"][0])
+    path = emit(plan, tmp_path)
+    # An input count the module does not expect: y[2] is out of range for 2-item vectors.
+    with pytest.raises(VerificationError, match="IndexError"):
+        run_micropython(path, np.zeros((5, 2), dtype=np.int64))

@@ -16,8 +16,9 @@ from affix.emit.names import check_names
 from affix.emit.templates import render
 
 # Small ints of 32-bit ports (the MCUs): 31-bit signed, from memory.  Checked
-# indirectly: mpy-cross 1.29 (default small-int width for armv7emsp) refuses a
-# viper literal of 1.5e9 as an object, and accepts 1e9.
+# against mpy-cross 1.29 for armv7emsp (its .mpy header records 31 small-int
+# bits): a viper literal of 2**30 or -2**30 - 1 is an object and fails to
+# compile, 2**30 - 1 and -2**30 compile (tests/test_emit_micropython.py).
 SMALL_INT_32 = (-(2**30), 2**30 - 1)
 # Small ints of 64-bit ports, measured in the unix x64 port with
 # micropython.heap_lock(): 2**62 - 1 and -2**62 do not allocate, one beyond does.

@@ -55,7 +55,10 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
     if check_alloc and returns_list:
         raise ValueError("estimate returns a new list: it allocates by design")
     py_file = Path(py_file)
-    vectors = np.ascontiguousarray(np.atleast_2d(vectors), dtype="<i8")
+    vectors = np.atleast_2d(vectors)
+    if not np.issubdtype(vectors.dtype, np.integer):
+        raise ValueError("vectors must be integers")
+    vectors = np.ascontiguousarray(vectors, dtype="<i8")
     exe = tool("micropython")
     with tempfile.TemporaryDirectory(prefix="affix-mp-") as tmp:
         tmp = Path(tmp)
@@ -71,13 +74,7 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
         )
         (tmp / "driver.py").write_text(driver)
         vectors.tofile(tmp / "vectors.bin")
-        done = subprocess.run(
-            [exe, "driver.py", "vectors.bin", "results.bin", str(len(vectors))],
-            cwd=tmp,
-            capture_output=True,
-            text=True,
-            timeout=_TIMEOUT,
-        )
+        done = _run([exe, "driver.py", "vectors.bin", "results.bin", str(len(vectors))], cwd=tmp)
         words = done.stdout.split()
         if done.returncode == 4 and words == ["self-test-failed"]:
             raise VerificationError(f"{py_file.name}: self_test() is False in MicroPython")
@@ -87,9 +84,11 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
                 f"{py_file.name}: {function} allocated on the heap for vector {k} "
                 f"(y = {vectors[k].tolist()}; {how})"
             )
+        # The module itself raised (this port prints tracebacks on stdout): the emitted code is wrong.
+        if "Traceback (most recent call last)" in done.stdout + done.stderr:
+            raise VerificationError(f"{py_file.name} ({function}) raised in MicroPython: {_last_line(done)}")
         if done.returncode != 0 or words != ["evaluated", str(len(vectors))]:
-            last = (done.stderr.strip().splitlines() or done.stdout.strip().splitlines() or ["no output"])[-1]
-            raise ToolError(f"micropython failed running {py_file.name} ({function}): {last}")
+            raise ToolError(f"micropython failed running {py_file.name} ({function}): {_last_line(done)}")
         results = np.fromfile(tmp / "results.bin", dtype="<i8")
     return results.reshape(len(vectors), -1)
 
@@ -101,13 +100,18 @@ def cross_compile(py_file, *, march: str = "armv7emsp", out=None) -> Path:
     """
     py_file = Path(py_file)
     out = Path(out) if out is not None else py_file.with_suffix(".mpy")
-    done = subprocess.run(
-        [tool("mpy-cross"), f"-march={march}", "-o", str(out), str(py_file)],
-        capture_output=True,
-        text=True,
-        timeout=_TIMEOUT,
-    )
+    done = _run([tool("mpy-cross"), f"-march={march}", "-o", str(out), str(py_file)])
     if done.returncode != 0 or not out.is_file():
-        last = (done.stderr.strip().splitlines() or ["no output"])[-1]
-        raise ToolError(f"mpy-cross -march={march} failed on {py_file.name}: {last}")
+        raise ToolError(f"mpy-cross -march={march} failed on {py_file.name}: {_last_line(done)}")
     return out
+
+
+def _run(command, cwd=None) -> subprocess.CompletedProcess:
+    try:
+        return subprocess.run(command, cwd=cwd, capture_output=True, text=True, timeout=_TIMEOUT)
+    except subprocess.TimeoutExpired:
+        raise ToolError(f"{Path(command[0]).name} did not finish within {_TIMEOUT} s") from None
+
+
+def _last_line(done: subprocess.CompletedProcess) -> str:
+    return (done.stderr.strip().splitlines() or done.stdout.strip().splitlines() or ["no output"])[-1]
