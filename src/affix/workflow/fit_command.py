@@ -51,7 +51,7 @@ def run(args) -> int:
         print(f"affix: warning: {warning.message}", file=sys.stderr)
     if model.dropped_rows:
         print(f"affix: note: left out {model.dropped_rows} row(s) holding NaN, infinite or empty values", file=sys.stderr)
-    _save_atomically(model, out)
+    save_model(model, out)
     summary = summarise(model, out)
     print(json.dumps(summary, indent=2) if args.json else format_table(summary))
     return 0
@@ -106,7 +106,7 @@ def _names(text: str, option: str) -> list[str]:
     return names
 
 
-def _save_atomically(model, path: Path) -> None:
+def save_model(model, path: Path) -> None:
     temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
     try:
         model.save(temporary)

@@ -1,0 +1,64 @@
+"""The bundled demo, an invented scenario: the wrist force/torque sensor of a small robot arm.
+
+A hub with three spokes 120 degrees apart carries six strain-gauge bridges:
+on each spoke one bridge reads bending (from Fz and the tilting torques
+Tx, Ty) and one reads shear (from Fx, Fy and the twisting torque Tz).  Each
+bridge goes through a 16-bit ADC (signed counts), and a thermistor on a
+12-bit ADC logs the hub temperature, because every bridge's zero drifts with
+it.  The calibration rig applies known wrenches (Fx, Fy, Fz in N; Tx, Ty, Tz
+in N*m) across the rated range at temperatures from 15 to 45 degC.
+
+The firmware must turn the seven counts into the six wrench components, so
+the estimator has seven inputs and six outputs.  Everything here comes from
+one seeded generator: the same rows on every run.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+BRIDGES = [f"bridge{k}" for k in range(1, 7)]
+INPUTS = BRIDGES + ["therm"]
+OUTPUTS = ["Fx", "Fy", "Fz", "Tx", "Ty", "Tz"]
+RATED = np.array([200.0, 200.0, 500.0, 10.0, 10.0, 8.0])  # N, N, N, N*m, N*m, N*m
+SEED = 6006
+ROWS = 6000
+
+
+def sensitivity(rng) -> np.ndarray:
+    """Counts per unit load (6 bridges x 6 wrench components): the spoke
+    geometry plus a few percent of cross-talk from gauge placement."""
+    k = np.zeros((6, 6))
+    for spoke, angle in enumerate(np.radians([90.0, 210.0, 330.0])):
+        bend, shear = 2 * spoke, 2 * spoke + 1
+        k[bend, [2, 3, 4]] = 18.0, 1100.0 * np.sin(angle), -1100.0 * np.cos(angle)  # Fz, Tx, Ty
+        k[shear, [0, 1, 5]] = -55.0 * np.sin(angle), 55.0 * np.cos(angle), 1300.0  # Fx, Fy, Tz
+    typical = np.abs(k).max(axis=0)
+    return k + rng.normal(scale=0.03, size=k.shape) * typical
+
+
+def calibration_rows(rows: int = ROWS, seed: int = SEED) -> dict[str, np.ndarray]:
+    """The rig log: column name -> values.  Bridge and thermistor columns are integer counts."""
+    rng = np.random.default_rng(seed)
+    k = sensitivity(rng)
+    zero = rng.uniform(-1500, 1500, size=6)  # counts at no load, 25 degC
+    drift = rng.uniform(-14, 14, size=6)  # counts per degC
+    wrench = rng.uniform(-0.8, 0.8, size=(rows, 6)) * RATED
+    temperature = rng.uniform(15.0, 45.0, size=rows)
+    bridges = zero + wrench @ k.T + np.outer(temperature - 25.0, drift) + rng.normal(scale=4.0, size=(rows, 6))
+    therm = 2048 + 40.0 * (temperature - 25.0) + rng.normal(scale=1.0, size=rows)
+    counts = np.clip(np.rint(np.column_stack([bridges, therm])), -32768, 32767).astype(np.int64)
+    # The rig's own reference has a small uncertainty too.
+    reference = wrench + rng.normal(size=wrench.shape) * RATED * 2e-4
+    data = {name: counts[:, j] for j, name in enumerate(INPUTS)}
+    data.update({name: reference[:, i] for i, name in enumerate(OUTPUTS)})
+    return data
+
+
+def write_csv(path, rows: int = ROWS, seed: int = SEED) -> None:
+    data = calibration_rows(rows, seed)
+    lines = [",".join(INPUTS + OUTPUTS)]
+    for r in range(rows):
+        counts = ",".join(str(int(data[name][r])) for name in INPUTS)
+        loads = ",".join(f"{data[name][r]:.4f}" for name in OUTPUTS)
+        lines.append(f"{counts},{loads}")
+    path.write_text("\n".join(lines) + "\n")
