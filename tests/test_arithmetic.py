@@ -14,6 +14,8 @@ from fractions import Fraction
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from affix.arithmetic import (
     INPUT_CTYPES,
@@ -97,6 +99,7 @@ def test_negative_accumulators_and_ties(rounding):
 
 
 def test_output_clamps_to_type_limits_and_inputs_to_the_box():
+    # INT16_MIN/INT16_MAX = -32768/32767: C99 (ISO/IEC 9899:1999) 7.18.2.1.
     est = IntegerEstimator([[1000]], [0], [0], [(-100, 100)], "int16_t", "half-up", 32)
     out = est.evaluate(np.array([[-100], [32], [33], [100], [10**6], [-(10**6)]]))
     # 32 * 1000 = 32000 fits int16; 33 * 1000 saturates at 32767; inputs beyond the box clamp to +-100 first.
@@ -104,13 +107,16 @@ def test_output_clamps_to_type_limits_and_inputs_to_the_box():
 
 
 def test_huge_inputs_do_not_wrap_before_clamping():
-    # A uint64 value above 2**63 must clamp to hi, not wrap to a negative int64.
+    # uint64 -> int64 conversion wraps modulo 2**64 in numpy (numpy casting
+    # documentation); a uint64 value above 2**63 must clamp to hi, not wrap to a negative int64.
     est = IntegerEstimator([[1]], [0], [0], [(0, 4095)], "int16_t")
     assert est.evaluate(np.array([[2**64 - 1]], dtype=np.uint64)).tolist() == [[4095]]
     assert est.evaluate(np.array([[2**70], [-(2**70)]], dtype=object)).tolist() == [[4095], [0]]
 
 
 def test_rejects_non_integer_inputs_and_wrong_width():
+    # The contract is defined on integers only (common practice: silent
+    # truncation of floats would hide a caller's unit error).
     est = IntegerEstimator([[1, 2]], [0], [3], [(0, 10), (0, 10)], "int16_t")
     with pytest.raises(ValueError, match="integers"):
         est.evaluate(np.array([[1.5, 2.0]]))
@@ -119,11 +125,14 @@ def test_rejects_non_integer_inputs_and_wrong_width():
 
 
 def test_single_vector_gives_one_row():
+    # Against the Fraction oracle above (Python's exact integer arithmetic).
     est = IntegerEstimator([[3, -2]], [5], [2], [(0, 10), (-5, 5)], "int16_t")
     assert est.evaluate([1, 2]).tolist() == oracle(est, [[1, 2]])[0]
 
 
 def test_accumulator_bound_and_output_range_are_exact_on_corners():
+    # A linear form over a box takes its extremes at corners (common
+    # practice, linear programming); checked here by enumerating every corner.
     rng = np.random.default_rng(7)
     for rounding in ("half-up", "floor"):
         est = random_estimator(rng, n_inputs=4, n_outputs=3, coef_bits=16, input_kind="int16_t",
@@ -147,3 +156,23 @@ def test_input_ctype_takes_one_type_for_the_whole_box():
     assert input_ctype([(-1, 65535)]) == "int32_t"  # mixed signs: the signed type that holds both
     assert input_ctype([(0, 2**32 - 1)]) == "uint32_t"
     assert input_ctype([(-1, 2**32 - 1)]) is None
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    data=st.data(),
+    rounding=st.sampled_from(["half-up", "floor"]),
+    n_inputs=st.integers(1, 4),
+    output_ctype=st.sampled_from(sorted(OUTPUT_CTYPES)),
+)
+def test_evaluate_matches_oracle_on_generated_estimators(data, rounding, n_inputs, output_ctype):
+    # Hypothesis draws estimators of every size from tiny to beyond 2**63,
+    # shifts up to 80 and points beyond the box; the Fraction oracle decides.
+    big = st.integers(-(2**40), 2**40)
+    ranges = [tuple(sorted(data.draw(st.tuples(st.integers(-(2**31), 2**32 - 1), st.integers(-(2**31), 2**32 - 1)))))
+              for _ in range(n_inputs)]
+    coefficients = [[data.draw(st.integers(-(2**31), 2**31 - 1)) for _ in range(n_inputs)] for _ in range(2)]
+    est = IntegerEstimator(coefficients, [data.draw(big), data.draw(big)], [data.draw(st.integers(0, 80)) for _ in range(2)],
+                           ranges, output_ctype, rounding, 64)
+    y = [[data.draw(st.integers(lo - 10, hi + 10)) for lo, hi in ranges] for _ in range(5)]
+    assert est.evaluate(np.array(y, dtype=np.int64)).tolist() == oracle(est, y)

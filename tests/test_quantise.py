@@ -263,6 +263,8 @@ def every_configuration(model, box):
 
 
 def test_budget_search_returns_the_cheapest_configuration_by_brute_force():
+    # Brute force over all 12 configurations (common practice for a search
+    # this small) is the reference for the search's pick.
     rng = np.random.default_rng(77)
     for trial in range(4):
         box = [(0, 4095)] * 3
@@ -281,6 +283,7 @@ def test_budget_search_returns_the_cheapest_configuration_by_brute_force():
 
 
 def test_unmeetable_budget_exits_3_with_the_best_achievable_figure():
+    # Brute force again: the best figure any configuration reaches must be the one reported.
     rng = np.random.default_rng(8)
     box = [(0, 4095)] * 3
     model = model_for(rng, calibration_rows(rng, box, 1000), 2)
@@ -320,6 +323,9 @@ def test_saturation_never_triggers_inside_the_box(output_ctype):
 
 
 def test_default_lsb_is_the_finest_power_of_two_that_fits():
+    # The documented rule; a power-of-two lsb makes the output a Qm.n number
+    # (common practice in fixed-point firmware).  frexp's mantissa is exactly
+    # 0.5 for powers of two (C99 7.12.6.4, mirrored by Python's math.frexp).
     rng = np.random.default_rng(4)
     box = [(0, 4095)] * 3
     model = model_for(rng, calibration_rows(rng, box, 500), 2)
@@ -331,7 +337,9 @@ def test_default_lsb_is_the_finest_power_of_two_that_fits():
 
 
 def test_model_without_moments_uses_uniform_box_moments_and_says_so():
-    # As for an estimator adopted from another library with only gain and offset.
+    # Then the calibration prediction and the uniform-box prediction must be
+    # one and the same form (the discrete uniform variance ((hi-lo+1)**2-1)/12,
+    # from memory, any probability handbook).  As for an estimator adopted from another library with only gain and offset.
     model = Model(inputs=["a", "b"], outputs=["x"], gain=[[0.01, -0.02]], offset=[1.0])
     plan = plan_fixed_point(model, {"a": (0, 1023), "b": (-512, 511)})
     assert plan.moments_source == "uniform-box"
@@ -358,6 +366,8 @@ def test_shift_is_the_largest_that_passes_the_box_proof():
 
 
 def test_plan_round_trips_through_its_file(tmp_path):
+    # JSON (RFC 8259) keeps every integer and every double exactly through
+    # Python's json module, so the content hash survives the round trip.
     rng = np.random.default_rng(1)
     box = [(0, 4095)] * 2
     plan = plan_fixed_point(model_for(rng, calibration_rows(rng, box, 300), 2), box)

@@ -1,4 +1,10 @@
-"""'affix quantize' as a user runs it: the plan file, the table, and one-line errors that write nothing."""
+"""'affix quantize' as a user runs it: the plan file, the table, and one-line errors that write nothing.
+
+The references here are the project's own contract for users (one stderr
+line, exit 2 for bad input and 3 for an unmet budget, no output file on
+error: common practice for command-line tools, cf. POSIX utility conventions
+for a non-zero exit on error) and the JSON standard (RFC 8259) for --json.
+"""
 from __future__ import annotations
 
 import json
