@@ -44,11 +44,18 @@ class Plan:
     predicted_rms_deviation: tuple[float, ...] | None = None
     predicted_total_rms: tuple[float, ...] | None = None
     worst_case_deviation: tuple[float, ...] | None = None
-    deviation_parts: dict | None = None  # {"coefficients": [...], "output_rounding": [...], "input_quantisation": [...]}
+    # RMS of each independent part of the deviation, adding in quadrature:
+    # {"coefficients", "output_rounding", "input_quantisation"}, plus
+    # "coefficients_plain_rounding" (what rounding each coefficient alone would give).
+    deviation_parts: dict | None = None
     accumulator_bound: tuple[int, ...] | None = None
     accumulator_headroom_bits: tuple[float, ...] | None = None
-    budget: dict | None = None  # {"kind": "worst-case"|"rms-growth", "limits": [...], "margins": [...]}
-    measured: dict | None = None  # measured deviation figures, keyed by data set
+    # {"kind": "worst-case"|"rms-growth", "limits": [...], "margins": [...], "met": bool,
+    #  "growth_percent": p|None, "default": bool}; limits and margins None where unconstrained.
+    budget: dict | None = None
+    # Measured deviation figures, keyed by data set ("random", "corners", "calibration"),
+    # each {"rows", "rms_deviation", "max_deviation"} (+ "predicted_rms_deviation", "rows_outside_box").
+    measured: dict | None = None
     # Where the second moments of the coefficient-error form came from:
     # "calibration" (the model's input moments) or "uniform-box" (none known).
     moments_source: str | None = None
