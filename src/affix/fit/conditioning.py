@@ -26,13 +26,11 @@ def condition_number(r: np.ndarray) -> float:
 
 
 def collinear_inputs(r: np.ndarray, names) -> list[str]:
-    """The inputs that carry the near-dependence: the largest entries of the
-    eigenvector of R's smallest eigenvalue, covering 90 % of its weight."""
+    """The inputs that carry the near-dependence: those with a sizeable entry
+    (at least a tenth of the largest) in the eigenvector of R's smallest eigenvalue."""
     _, vectors = np.linalg.eigh(r)
-    weight = vectors[:, 0] ** 2
-    order = np.argsort(-weight)
-    count = max(2, int(np.searchsorted(np.cumsum(weight[order]), 0.9)) + 1)
-    return [names[j] for j in sorted(order[:count])]
+    weight = np.abs(vectors[:, 0])
+    return [name for name, w in zip(names, weight) if w >= 0.1 * weight.max()]
 
 
 def suggested_ridge(r: np.ndarray) -> float:

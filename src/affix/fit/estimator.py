@@ -71,10 +71,11 @@ def fit(
     _check_rows(moments, inputs, stream.path)
     r = correlation(moments, m)
     condition = conditioning.condition_number(r)
-    if ridge == 0 and condition > conditioning.WARN_CONDITION and math.isfinite(condition):
-        names = conditioning.collinear_inputs(r, inputs)
-        warnings.warn(conditioning.describe(names, condition) + "; their gains are poorly determined", CollinearityWarning, stacklevel=2)
     solution = _solve(moments, m, ridge, r, condition, inputs)
+    if ridge == 0 and condition > conditioning.WARN_CONDITION:
+        names = conditioning.collinear_inputs(r, inputs)
+        message = conditioning.describe(names, condition) + "; their gains are poorly determined"
+        warnings.warn(message, CollinearityWarning, stacklevel=2)
     cv_rms = _cross_validate(parts, m, ridge) if folds >= 2 else None
     covariance = moments.covariance
     return Model(
