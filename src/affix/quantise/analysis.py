@@ -56,10 +56,10 @@ def accuracy(problem: Problem, designs) -> Accuracy:
     coefficients = tuple(d.coefficient_rms(problem.moments) for d in designs)
     rounding = tuple(d.rounding_rms for d in designs)
     inputs = tuple(float(v) for v in problem.input_rms)
-    deviation = tuple(math.sqrt(c**2 + r**2 + i**2) for c, r, i in zip(coefficients, rounding, inputs))
+    deviation = tuple(math.hypot(c, r, i) for c, r, i in zip(coefficients, rounding, inputs))
     total = None
     if problem.float_rms is not None:
-        total = tuple(math.sqrt(float(f) ** 2 + d**2) for f, d in zip(problem.float_rms, deviation))
+        total = tuple(math.hypot(float(f), d) for f, d in zip(problem.float_rms, deviation))
     return Accuracy(
         coefficients=coefficients,
         plain_coefficients=tuple(d.coefficient_rms(problem.moments, plain=True) for d in designs),

@@ -85,7 +85,7 @@ def _check_range(g, b, lsb, box, output_ctype):
     low = b + float(np.minimum(g * lo, g * hi).sum())
     high = b + float(np.maximum(g * lo, g * hi).sum())
     type_lo, type_hi = OUTPUT_CTYPES[output_ctype]
-    if low < type_lo - 0.5 or high > type_hi + 0.5:
+    if not (type_lo - 0.5 <= low and high <= type_hi + 0.5):  # written so that NaN fails too
         raise Infeasible(
             f"over the input box it spans {low * lsb:.6g}..{high * lsb:.6g}, "
             f"{low:.6g}..{high:.6g} counts of {lsb:g}, beyond {output_ctype}"

@@ -10,13 +10,14 @@ from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS
 from affix.errors import UsageError
 from affix.plan import Plan
 from affix.quantise.analysis import Problem
-from affix.quantise.box import resolve_per_name, resolve_ranges
+from affix.quantise.box import reach, resolve_per_name, resolve_ranges
 from affix.quantise.budget import DEFAULT_GROWTH_PERCENT, Budget
 from affix.quantise.measure import measure_box, measure_calibration
 from affix.quantise.moments import augmented_moments, uniform_box_moments
 from affix.quantise.search import ACC_BITS, COEF_BITS, choose, configurations
 
 BOX_POINTS = 100_000
+_LARGEST_OUTPUT = 1e150  # its square, and sums of many, stay finite in float64
 
 
 def plan_fixed_point(
@@ -60,6 +61,10 @@ def plan_fixed_point(
     scale = np.array([1.0 if q is None else q for q in input_lsb])
     physical = np.array([q is not None for q in input_lsb])
     gain = model.gain * scale  # per count
+    largest = float(np.max(np.abs(gain) @ reach(box) + np.abs(model.offset)))
+    if not largest < _LARGEST_OUTPUT:
+        raise UsageError(f"the model's outputs reach {largest:.3g} over this box; the error analysis "
+                         f"squares them in double precision, so they must stay below {_LARGEST_OUTPUT:g}", "--range")
     moments, source = augmented_moments(model, box, scale)
     float_rms = model.cv_rms if model.cv_rms is not None else model.rms
     problem = Problem(
