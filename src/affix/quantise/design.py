@@ -21,7 +21,13 @@ class Configuration:
 
     @property
     def cost(self) -> tuple[int, int, int]:
-        """Cheaper first: coefficient width, then accumulator width, then output width."""
+        """Cheaper first: coefficient width, then accumulator width, then output width.
+
+        The coefficient width sets the table's flash size and the width of
+        every multiply, so it weighs most; a 64-bit accumulator costs a few
+        instructions per product on a 32-bit core; the output type only its
+        storage.
+        """
         return self.coef_bits, self.acc_bits, 16 if self.output_ctype == "int16_t" else 32
 
 

@@ -6,6 +6,7 @@ and writes the plan only after every check has passed.
 """
 from __future__ import annotations
 
+import argparse
 import json
 import math
 
@@ -16,12 +17,26 @@ from affix.quantise import plan_fixed_point
 from affix.quantise.search import ACC_BITS, COEF_BITS
 
 
+EPILOG = """\
+widths left open are searched cheapest first: coefficients 8 < 16 < 32 bits, then
+accumulator 32 < 64, then output int16_t < int32_t; the first that meets the budget
+wins. With no budget given, 1 % RMS growth is aimed at (best effort, never an error).
+default output lsb: the finest power of two at which the output's whole range over
+the box fits the output type and the coefficients fit at a shift >= 0.
+all inputs share one C type: the smallest of int8_t..uint32_t that holds every range
+(a box mixing signs, like -1:65535, takes int32_t).
+exit status: 0 plan written, 2 bad input, 3 no configuration meets the budget.
+"""
+
+
 def register(sub):
     parser = sub.add_parser(
         "quantize",
         help="choose integer widths, prove no overflow over the input box and predict the error",
         description="Turn a fitted model into a fixed-point plan: integer coefficients, offsets and shifts "
         "that provably cannot overflow for any input in the box, with the deviation they add.",
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     parser.add_argument("model", help="model file written by 'affix fit'")
     parser.add_argument("--range", action="append", default=[], metavar="[NAME=]LO:HI",
