@@ -60,7 +60,8 @@ def random_plan(
         out_bits = 15 if output_ctype == "int16_t" else 31
         # Shift that brings the accumulator span to the output range, moved by gain_scale.
         shift = max(0, int(np.ceil(np.log2(max(span, 1.0)))) - out_bits + int(round(-np.log2(gain_scale))))
-        shift = min(shift, acc_bits - 2)  # half-up rounding constant must fit the proof too
+        while shift > 0 and span + rounding_constant(shift, rounding) >= 2.0 ** (acc_bits - 1):
+            shift -= 1  # the rounding constant is part of the box proof too
         coefficients.append(tuple(row))
         offsets.append(offset)
         shifts.append(shift)

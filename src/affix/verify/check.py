@@ -77,9 +77,15 @@ def find_manifest(out_dir) -> tuple[Path, dict]:
     return found[0], manifest
 
 
-def verify(out_dir, *, vectors: int = 10**6, data=None, seed: int = 0, cache_dir=None) -> Report:
+def verify(
+    out_dir, *, vectors: int = 10**6, data=None, seed: int = 0, micropython_vectors: int = MICROPYTHON_VECTORS,
+    cache_dir=None,
+) -> Report:
     """Check every artefact in ``out_dir``; the report, or VerificationError
-    (carrying the report as ``.report``) at any mismatch."""
+    (carrying the report as ``.report``) at any mismatch.
+
+    The MicroPython runtime sees at most ``micropython_vectors`` of each set.
+    """
     _, manifest = find_manifest(out_dir)
     try:
         integer = IntegerEstimator.from_mapping(manifest)
@@ -96,7 +102,7 @@ def verify(out_dir, *, vectors: int = 10**6, data=None, seed: int = 0, cache_dir
     if "c" in files:
         results += _check_c(out_dir, manifest, sets, float32 or integer, cache_dir)
     if "micropython" in files:
-        results += _check_micropython(out_dir, manifest, sets, integer)
+        results += _check_micropython(out_dir, manifest, sets, integer, micropython_vectors)
     report = Report(manifest["name"], results, notes=[f"note: {n}" for n in manifest.get("notes", [])])
     if report.mismatches:
         error = VerificationError(
@@ -115,7 +121,7 @@ def _check_c(out_dir, manifest, sets, reference, cache_dir) -> list[Result]:
     return [compare(label, name, y, reference.evaluate(y), code.evaluate(y)) for name, y in sets.items()]
 
 
-def _check_micropython(out_dir, manifest, sets, reference) -> list[Result]:
+def _check_micropython(out_dir, manifest, sets, reference, limit: int) -> list[Result]:
     from affix.emit.micropython import variants
     from affix.verify.micropython_run import cross_compile, run_micropython
 
@@ -125,7 +131,7 @@ def _check_micropython(out_dir, manifest, sets, reference) -> list[Result]:
     results = []
     for variant in variants(reference):
         for name, y in sets.items():
-            subset = _spread(y, MICROPYTHON_VECTORS)
+            subset = _spread(y, limit)
             actual = run_micropython(module, subset, variant=variant)
             results.append(compare(f"MicroPython {module.name} ({variant})", name, subset, reference.evaluate(subset), actual))
     with tempfile.TemporaryDirectory(prefix="affix-mpy-") as tmp:  # the .mpy is a check, not an output
