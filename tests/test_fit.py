@@ -135,7 +135,7 @@ def test_ill_conditioned_set_matches_numpy_lstsq():
     solution, *_ = np.linalg.lstsq(design, x, rcond=None)
     model = quiet_fit((y, x), folds=0)
     # Solving from second moments squares the condition of the scaled
-    # problem (here about 1e9, about 1e-7 relative accuracy for the gains of
+    # problem (here about 1e10, so about 1e-6 relative accuracy for the gains of
     # the collinear inputs); the scaling removes the part due to units and offsets.
     assert 1e6 < model.condition_number < 1e10
     scale = np.abs(solution[:-1].T).max(axis=1, keepdims=True)

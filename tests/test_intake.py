@@ -1,0 +1,130 @@
+"""Reading calibration files in chunks, checked against numpy's and hashlib's readers."""
+from __future__ import annotations
+
+import hashlib
+
+import numpy as np
+import pytest
+
+import affix
+from affix.errors import DataError
+from affix.intake import column_names, read_chunks
+
+
+def table(rng, rows=1000):
+    values = rng.normal(size=(rows, 4)) * [1.0, 100.0, 1e-3, 1e5]
+    values[:, 0] = np.rint(values[:, 0] * 1000)  # an integer column, as ADC counts are
+    return values
+
+
+def write_csv(path, names, values):
+    # repr() round-trips a double exactly
+    path.write_text(",".join(names) + "\n" + "\n".join(",".join(repr(float(v)) for v in row) for row in values) + "\n")
+
+
+def whole(stream):
+    return np.vstack(list(stream))
+
+
+def test_csv_columns_by_name_in_the_order_asked(tmp_path):
+    values = table(np.random.default_rng(1))
+    path = tmp_path / "log.csv"
+    write_csv(path, ["a", "b", "c", "d"], values)
+    assert column_names(path) == ["a", "b", "c", "d"]
+    reference = np.loadtxt(path, delimiter=",", skiprows=1)  # numpy's own CSV reader
+    for chunk_rows in (7, 1000, 5000):
+        got = whole(read_chunks(path, ["d", "a", "c"], chunk_rows=chunk_rows))
+        np.testing.assert_array_equal(got, reference[:, [3, 0, 2]])
+
+
+def test_npy_columns_are_named_by_index(tmp_path):
+    values = table(np.random.default_rng(2))
+    path = tmp_path / "log.npy"
+    np.save(path, values)
+    assert column_names(path) == ["0", "1", "2", "3"]
+    np.testing.assert_array_equal(whole(read_chunks(path, ["3", "1"], chunk_rows=33)), values[:, [3, 1]])
+    np.save(path, values.astype(np.int16))
+    np.testing.assert_array_equal(whole(read_chunks(path, ["0"], chunk_rows=33))[:, 0], values[:, 0].astype(np.int16))
+
+
+def test_npz_of_named_columns_or_of_one_array(tmp_path):
+    values = table(np.random.default_rng(3))
+    named = tmp_path / "named.npz"
+    np.savez_compressed(named, Fx=values[:, 0], b1=values[:, 1].astype(np.float32), b2=values[:, 2])
+    assert column_names(named) == ["Fx", "b1", "b2"]
+    got = whole(read_chunks(named, ["b2", "Fx", "b1"], chunk_rows=64))
+    np.testing.assert_array_equal(got, np.column_stack([values[:, 2], values[:, 0], values[:, 1].astype(np.float32)]))
+    single = tmp_path / "single.npz"
+    np.savez(single, values)
+    np.testing.assert_array_equal(whole(read_chunks(single, ["2", "0"], chunk_rows=100)), values[:, [2, 0]])
+
+
+def test_sha256_of_the_whole_file_after_a_pass(tmp_path):
+    path = tmp_path / "log.csv"
+    write_csv(path, ["a", "b", "c", "d"], table(np.random.default_rng(4)))
+    stream = read_chunks(path, ["b"], chunk_rows=50)
+    whole(stream)
+    assert stream.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
+    assert stream.rows_read == 1000 and stream.rows_dropped == 0
+
+
+def test_invalid_rows_are_counted_and_named_or_dropped(tmp_path):
+    path = tmp_path / "log.csv"
+    path.write_text("a,b\n1,2\n3,nan\n5,6\n,8\n9,inf\n11,12\n")
+    with pytest.raises(DataError, match=r"row 2: 3 row\(s\) hold NaN, infinite or empty values, the first in column 'b'"):
+        whole(read_chunks(path, ["a", "b"], chunk_rows=2))
+    stream = read_chunks(path, ["a", "b"], chunk_rows=2, drop_invalid=True)
+    np.testing.assert_array_equal(whole(stream), [[1, 2], [5, 6], [11, 12]])
+    assert stream.rows_dropped == 3 and stream.first_invalid == (2, "b")
+
+
+def test_a_non_numeric_cell_is_named_by_file_row_and_column(tmp_path):
+    path = tmp_path / "log.csv"
+    rows = [f"{i},{i * 2}" for i in range(300)]
+    rows[217] = "217,4x2"
+    path.write_text("a,b\n" + "\n".join(rows) + "\n")
+    with pytest.raises(DataError, match=rf"{path}, row 218, column 'b': not a number: '4x2'"):
+        whole(read_chunks(path, ["a", "b"], chunk_rows=100))
+
+
+@pytest.mark.parametrize(
+    "make, message",
+    [
+        (lambda p: np.save(p, np.zeros(5)), "expected a 2-D array"),
+        (lambda p: np.save(p, np.asfortranarray(np.zeros((5, 3)))), "Fortran order"),
+        (lambda p: np.save(p, np.array([["a", "b"]])), "expected plain numbers"),
+        (lambda p: p.write_bytes(b"not numpy"), "not a valid NumPy array"),
+    ],
+)
+def test_unusable_npy_files(tmp_path, make, message):
+    path = tmp_path / "bad.npy"
+    make(path)
+    with pytest.raises(DataError, match=message):
+        column_names(path)
+
+
+def test_missing_file_and_column_and_ambiguous_header(tmp_path):
+    with pytest.raises(DataError, match="no such file"):
+        read_chunks(tmp_path / "absent.csv", ["a"])
+    path = tmp_path / "log.csv"
+    path.write_text("a,b,a\n1,2,3\n")
+    with pytest.raises(DataError, match=r"no column 'z' \(available: a, b, a\)"):
+        read_chunks(path, ["z"])
+    with pytest.raises(DataError, match="names column 'a' 2 times"):
+        read_chunks(path, ["a"])
+
+
+def test_a_file_larger_than_the_chunk_fits_like_the_same_rows_in_memory(tmp_path):
+    rng = np.random.default_rng(5)
+    y = rng.normal(loc=2000.0, scale=30.0, size=(5000, 3))
+    x = y @ rng.normal(size=(3, 2)) + rng.normal(size=(5000, 2))
+    path = tmp_path / "log.csv"
+    write_csv(path, ["y1", "y2", "y3", "x1", "x2"], np.hstack([y, x]))
+    from_file = affix.fit(path, ["y1", "y2", "y3"], ["x1", "x2"], chunk_rows=333)
+    in_memory = affix.fit((y, x))
+    for name in ("gain", "error_covariance", "cv_rms", "input_mean", "input_covariance"):
+        np.testing.assert_allclose(getattr(from_file, name), getattr(in_memory, name), rtol=1e-12, err_msg=name)
+    # b = mean_x - A mean_y cancels: compare it on the scale of the terms it is made of.
+    terms = np.abs(in_memory.gain) @ np.abs(in_memory.input_mean)
+    np.testing.assert_allclose(from_file.offset, in_memory.offset, rtol=0, atol=1e-12 * terms.max())
+    assert from_file.data_sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
