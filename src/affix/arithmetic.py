@@ -149,35 +149,49 @@ class IntegerEstimator:
         y = np.atleast_2d(y)
         if y.ndim != 2 or y.shape[1] != self.n_inputs:
             raise ValueError(f"expected {self.n_inputs} inputs per vector, got shape {y.shape}")
-        yc = self._clamp_to_box(y)
         bound = max(self.accumulator_bounds(), default=0)
         lo_out, hi_out = OUTPUT_CTYPES[self.output_ctype]
         constant = [c + rounding_constant(s, self.rounding) for c, s in zip(self.offsets, self.shifts)]
         if bound < _FLOAT64_EXACT:
             # Every value here is an integer (or an integer over a power of
-            # two) below 2**53, so each product, sum, scaling and floor is exact.
-            acc = yc.astype(np.float64) @ np.array(self.coefficients, dtype=np.float64).T
-            acc += np.array(constant, dtype=np.float64)
-            out = np.floor(acc * np.array([2.0**-s for s in self.shifts]))
+            # two) below 2**53, so each product, sum, scaling and floor is
+            # exact.  Converting before clamping is safe: rounding to double
+            # is monotonic, so a value beyond the box stays beyond it.
+            yf = (self._clamp_to_box(y) if y.dtype == object else self._checked(y)).astype(np.float64)
+            np.clip(yf, *self._box_limits(), out=yf)
+            out = yf @ np.array(self.coefficients, dtype=np.float64).T
+            out += np.array(constant, dtype=np.float64)
+            out *= np.array([2.0**-s for s in self.shifts])
+            np.floor(out, out=out)
         elif bound < 2**63:
-            acc = yc @ np.array(self.coefficients, dtype=np.int64).T + np.array(constant, dtype=np.int64)
+            acc = self._clamp_to_box(y) @ np.array(self.coefficients, dtype=np.int64).T
+            acc += np.array(constant, dtype=np.int64)
             out = acc >> np.array(self.shifts, dtype=np.int64)  # arithmetic shift: floor division by 2**s
         else:
-            acc = yc.astype(object) @ np.array(self.coefficients, dtype=object).T + np.array(constant, dtype=object)
-            out = acc >> np.array(self.shifts, dtype=object)  # Python's >> floors too
+            acc = self._clamp_to_box(y).astype(object) @ np.array(self.coefficients, dtype=object).T
+            out = (acc + np.array(constant, dtype=object)) >> np.array(self.shifts, dtype=object)  # floors too
         out = np.clip(out, lo_out, hi_out).astype(np.int64)
         return out[0] if single else out
 
-    def _clamp_to_box(self, y: np.ndarray) -> np.ndarray:
-        """Inputs clamped to the box, as int64 (the box itself always fits int64)."""
+    def _box_limits(self) -> tuple[np.ndarray, np.ndarray]:
         lo = np.array([r[0] for r in self.input_ranges], dtype=np.int64)
         hi = np.array([r[1] for r in self.input_ranges], dtype=np.int64)
+        return lo, hi
+
+    def _clamp_to_box(self, y: np.ndarray) -> np.ndarray:
+        """Inputs clamped to the box, as int64 (the box itself always fits int64)."""
+        lo, hi = self._box_limits()
         if y.dtype == object:  # Python integers of any size
             if not all(isinstance(v, (int, np.integer)) and not isinstance(v, bool) for v in y.flat):
                 raise ValueError("inputs must be integers")
             return np.clip(y, lo.astype(object), hi.astype(object)).astype(np.int64)
-        if not np.issubdtype(y.dtype, np.integer):
-            raise ValueError("inputs must be integers")
+        y = self._checked(y)
         if y.dtype == np.uint64:  # values beyond 2**63 would wrap in the cast to int64
             y = np.minimum(y, np.uint64(2**63 - 1))
         return np.clip(y.astype(np.int64, copy=False), lo, hi)
+
+    @staticmethod
+    def _checked(y: np.ndarray) -> np.ndarray:
+        if not np.issubdtype(y.dtype, np.integer):
+            raise ValueError("inputs must be integers")
+        return y
