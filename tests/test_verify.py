@@ -40,10 +40,11 @@ def test_beyond_the_box_reaches_the_type_limits():
 
 def test_cli_emit_then_verify_passes(tmp_path):
     random_plan(4, 6, 6, ranges="int16").save(tmp_path / "plan.json")
-    done = run_affix("emit", tmp_path / "plan.json", "--lang", "c", "--style", "unrolled", "--name", "wrist",
-                     "--out", tmp_path / "out")
+    # Relative paths, as a user types them: the build must not depend on its working folder.
+    done = run_affix("emit", "plan.json", "--lang", "c", "--style", "unrolled", "--name", "wrist", "--out", "out",
+                     cwd=tmp_path)
     assert done.returncode == 0, done.stderr
-    done = run_affix("verify", tmp_path / "out", "--vectors", "20000")
+    done = run_affix("verify", "out", "--vectors", "20000", cwd=tmp_path)
     assert done.returncode == 0, done.stdout + done.stderr
     lines = done.stdout.splitlines()
     assert any("corners" in line and line.split()[-2:] == ["64", "0"] for line in lines)  # 2**6 corners

@@ -145,6 +145,7 @@ def run_driver(exe, manifest, vectors) -> np.ndarray:
 
 def _emitted_sources(emit_dir: Path, manifest) -> tuple[Path, Path]:
     name = manifest["name"]
+    emit_dir = emit_dir.resolve()  # cffi compiles from its own working folder
     source, header = emit_dir / f"{name}.c", emit_dir / f"{name}.h"
     for path in (source, header):
         if not path.is_file():
