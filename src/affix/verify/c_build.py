@@ -3,7 +3,8 @@ entry point, and a stand-alone driver program for sanitizer runs.
 
 The extension is compiled once per distinct source into a cache folder (never
 into the user's emit folder): ``$AFFIX_CACHE_DIR``, else
-``$XDG_CACHE_HOME/affix/cffi``, else ``~/.cache/affix/cffi``.  One call of
+``$XDG_CACHE_HOME/affix/cffi``, else ``~/.cache/affix/cffi`` (one small
+module per distinct emitted source; deleting the folder is always safe).  One call of
 the batch function evaluates a whole numpy buffer (``ffi.from_buffer``), so
 there is no Python call per vector.
 """

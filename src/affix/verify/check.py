@@ -18,6 +18,7 @@ from affix.arithmetic import IntegerEstimator
 from affix.emit.writer import MANIFEST_FORMAT
 from affix.errors import FileFormatError, VerificationError
 from affix.float32_arithmetic import Float32Estimator
+from affix.verify.c_build import COMPILE_FLAGS, load_c
 from affix.verify.vectors import calibration_vectors, vector_sets
 
 SHOWN_MISMATCHES = 5
@@ -103,7 +104,10 @@ def verify(
         results += _check_c(out_dir, manifest, sets, float32 or integer, cache_dir)
     if "micropython" in files:
         results += _check_micropython(out_dir, manifest, sets, integer, micropython_vectors)
-    report = Report(manifest["name"], results, notes=[f"note: {n}" for n in manifest.get("notes", [])])
+    notes = [f"note: {n}" for n in manifest.get("notes", [])]
+    if "c" in files:
+        notes.append(f"note: C built through cffi with {' '.join(COMPILE_FLAGS)}")
+    report = Report(manifest["name"], results, notes=notes)
     if report.mismatches:
         error = VerificationError(
             f"{out_dir}: {report.mismatches} mismatches in {report.evaluations} evaluations of {report.name}"
@@ -114,8 +118,6 @@ def verify(
 
 
 def _check_c(out_dir, manifest, sets, reference, cache_dir) -> list[Result]:
-    from affix.verify.c_build import load_c
-
     code = load_c(out_dir, manifest, cache_dir=cache_dir)
     label = f"C {manifest['name']}.c ({manifest['arith']}, {manifest['style']})"
     return [compare(label, name, y, reference.evaluate(y), code.evaluate(y)) for name, y in sets.items()]
