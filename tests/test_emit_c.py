@@ -209,3 +209,29 @@ def test_input_beyond_a_32_bit_accumulator_is_refused():
     plan.validate()
     with pytest.raises(UsageError, match="beyond the 32-bit accumulator"):
         render_c(plan, "probe")
+
+
+@pytest.mark.parametrize("plan_kind", ["int16-in int16-out acc32", "uint32-in int16-out acc64 saturating",
+                                       "int32-in int32-out acc64 floor"])
+def test_float32_error_bound_in_the_header_holds(plan_kind):
+    # The header's bound (Higham's gamma_n bound for inner products, from
+    # memory) against exact rational arithmetic (Python's fractions) on the
+    # corners and random points of the box.
+    from fractions import Fraction
+
+    import numpy as np
+
+    from affix.emit.context import build_context
+    from affix.float32_arithmetic import Float32Estimator
+    from affix.verify.vectors import vector_sets
+
+    plan = random_plan(7, 4, 3, **PLANS[plan_kind])
+    context = build_context(plan, "probe", arith="float32")
+    sets = vector_sets(plan.input_ranges, context["input_ctype"], n_random=200, seed=5)
+    y = np.vstack([sets["corners"], sets["random"]])
+    got = Float32Estimator(plan.gain, plan.offset, plan.input_ranges).evaluate(y)
+    for i, output in enumerate(context["outputs"]):
+        exact = [Fraction(plan.offset[i]) + sum(Fraction(g) * int(v) for g, v in zip(plan.gain[i], row)) for row in y]
+        worst = max(abs(Fraction(float(g)) - e) for g, e in zip(got[:, i], exact))
+        assert worst <= Fraction(output["float32_error_bound"])
+        assert f"within {output['float32_error_bound']:.3g} of the exact model" in render_c(plan, "probe", arith="float32")["probe.h"]
