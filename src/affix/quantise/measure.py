@@ -45,12 +45,15 @@ def measure_box(estimator, gain, offset, lsb, box, *, points, seed) -> dict:
 def measure_calibration(estimator, model, input_scale, lsb, box, chunks) -> dict:
     lo = np.array([r[0] for r in box], dtype=float)
     hi = np.array([r[1] for r in box], dtype=float)
+    scaled = np.any(input_scale != 1)
     tally, outside = _Deviation(model.n_outputs), 0
     for chunk in chunks:
         chunk = np.asarray(chunk, dtype=float).reshape(-1, model.n_inputs)
-        counts = np.rint(chunk / input_scale)
-        inside = np.all((counts >= lo) & (counts <= hi), axis=1)  # NaN rows fail this too
-        if not inside.all():
+        counts = np.rint(chunk / input_scale if scaled else chunk)
+        # Column extremes first: the usual chunk lies wholly inside and needs
+        # no row mask (NaN fails these comparisons and takes the slow path).
+        if not (np.all(counts.min(axis=0, initial=np.inf) >= lo) and np.all(counts.max(axis=0, initial=-np.inf) <= hi)):
+            inside = np.all((counts >= lo) & (counts <= hi), axis=1)
             outside += int((~inside).sum())
             chunk, counts = chunk[inside], counts[inside]
         tally.add(estimator.evaluate(counts.astype(np.int64)) * lsb - model.predict(chunk))
