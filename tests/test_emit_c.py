@@ -235,3 +235,17 @@ def test_float32_error_bound_in_the_header_holds(plan_kind):
         worst = max(abs(Fraction(float(g)) - e) for g, e in zip(got[:, i], exact))
         assert worst <= Fraction(output["float32_error_bound"])
         assert f"within {output['float32_error_bound']:.3g} of the exact model" in render_c(plan, "probe", arith="float32")["probe.h"]
+
+
+@pytest.mark.parametrize(
+    "field,value",
+    [("model_sha256", "*/ #include <stdio.h> /*"), ("tool_version", "0.1\n#define x"), ("input_lsb", ["*/", 1, 1, 1])],
+)
+def test_free_text_from_a_plan_file_never_reaches_a_comment(tmp_path, field, value):
+    data = random_plan(7, 4, 3).to_dict()
+    data[field] = value
+    (tmp_path / "plan.json").write_text(json.dumps(data))
+    done = run_affix("emit", tmp_path / "plan.json", "--lang", "all", "--name", "probe", "--out", tmp_path / "out")
+    assert done.returncode == 2, done.stderr
+    assert done.stderr.startswith("affix: error:") and field in done.stderr
+    assert not (tmp_path / "out").exists()

@@ -8,11 +8,12 @@ self-test, computed by the integer reference at emit time.
 from __future__ import annotations
 
 import math
+import re
 
 import numpy as np
 
 from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, input_ctype as smallest_input_ctype, output_range, rounding_constant
-from affix.errors import UsageError
+from affix.errors import FileFormatError, UsageError
 from affix.float32_arithmetic import Float32Estimator
 
 CAUTION = (
@@ -22,6 +23,11 @@ CAUTION = (
     "under the applicable functional-safety standards and local codes, by qualified people.",
     "The checks made by affix cover the arithmetic, not the sensor.",
 )
+
+# Text fields of a plan file reach comments of the emitted code, so only
+# these shapes pass (a '*/' or a line break would end or escape the comment).
+_SHA256 = re.compile(r"^[0-9a-f]{64}$")
+_VERSION = re.compile(r"^[0-9A-Za-z][0-9A-Za-z.+-]{0,39}$")  # PEP 440 versions and local labels
 
 _ACCURACY_FIELDS = ("float_rms", "predicted_rms_deviation", "predicted_total_rms", "worst_case_deviation")
 
@@ -36,6 +42,7 @@ def input_ctype(input_ranges) -> str:
 
 def build_context(plan, name: str, *, arith: str = "int", style: str = "table") -> dict:
     """The template context for ``plan`` emitted as ``name``."""
+    _check_plan_text(plan)
     bounds = plan.integer_estimator().accumulator_bounds()
     in_ctype = input_ctype(plan.input_ranges)
     type_lo, type_hi = INPUT_CTYPES[in_ctype]
@@ -155,6 +162,17 @@ def _float32_error_bound(gain, offset, input_ranges) -> float:
     k = len(input_ranges) + 3
     reach = sum(abs(g) * max(abs(lo), abs(hi)) for g, (lo, hi) in zip(gain, input_ranges))
     return k * u / (1 - k * u) * (abs(offset) + reach)
+
+
+def _check_plan_text(plan) -> None:
+    if not _SHA256.match(str(plan.model_sha256)):
+        raise FileFormatError("the plan's model_sha256 is not a SHA-256 hex digest")
+    if not _VERSION.match(str(plan.tool_version)):
+        raise FileFormatError("the plan's tool_version is not a version number")
+    lsbs = [] if plan.input_lsb is None else plan.input_lsb
+    if any(v is not None and (isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or v <= 0)
+           for v in lsbs):
+        raise FileFormatError("the plan's input_lsb holds something other than positive numbers")
 
 
 def _bits(ctype: str) -> int:
