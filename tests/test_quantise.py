@@ -9,6 +9,8 @@ from itertools import product
 import numpy as np
 import pytest
 from fxpmath import Fxp
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from affix.arithmetic import OUTPUT_CTYPES, IntegerEstimator, rounding_constant
 from affix.errors import BudgetError, UsageError
@@ -377,3 +379,30 @@ def test_plan_round_trips_through_its_file(tmp_path):
     again = Plan.load(tmp_path / "plan.json")
     assert again.sha256 == plan.sha256 and again.moments_source == "calibration"
     assert not list(tmp_path.glob(".*tmp")), "no temporary file left behind"
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    data=st.data(),
+    n_inputs=st.integers(1, 3),
+    rounding=st.sampled_from(["half-up", "floor"]),
+    coef_bits=st.sampled_from([8, 16, 32]),
+    acc_bits=st.sampled_from([32, 64]),
+)
+def test_generated_plans_keep_the_proof_and_the_bound(data, n_inputs, rounding, coef_bits, acc_bits):
+    # Hypothesis draws gains over 12 decades, boxes of every sign and width,
+    # both roundings and every width; whatever plan comes out must pass the
+    # box proof again (Plan.validate), never saturate on a corner and keep
+    # its worst-case bound there, in exact rationals (Python fractions).
+    box = [tuple(sorted(data.draw(st.tuples(st.integers(-(2**15), 2**16), st.integers(-(2**15), 2**16)))))
+           for _ in range(n_inputs)]
+    gains = [[data.draw(st.floats(-1, 1)) * 10.0 ** data.draw(st.integers(-8, 4)) for _ in range(n_inputs)]]
+    model = Model(inputs=[f"y{j}" for j in range(n_inputs)], outputs=["x"], gain=gains,
+                  offset=[data.draw(st.floats(-1e3, 1e3))])
+    plan = plan_fixed_point(model, box, coef_bits=coef_bits, acc_bits=acc_bits, rounding=rounding, box_points=10)
+    plan.validate()
+    corners = corners_of(box)
+    raw = unclamped(plan, corners)
+    lo_t, hi_t = OUTPUT_CTYPES[plan.output_ctype]
+    assert all(lo_t <= r[0] <= hi_t for r in raw)
+    assert max(abs(d[0]) for d in exact_deviation(plan, corners)) <= Fraction(plan.worst_case_deviation[0])

@@ -78,4 +78,4 @@ def _log2_room(room: float, need: float) -> int:
     """A shift one above the largest with need * 2**s <= room (the caller steps down from it)."""
     if need == 0:
         return 10**6
-    return math.floor(math.log2(room / need)) + 1
+    return math.floor(math.log2(room) - math.log2(need)) + 1  # no room / need: it overflows for subnormal need
