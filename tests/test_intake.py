@@ -130,3 +130,40 @@ def test_a_file_larger_than_the_chunk_fits_like_the_same_rows_in_memory(tmp_path
     terms = np.abs(in_memory.gain) @ np.abs(in_memory.input_mean)
     np.testing.assert_allclose(from_file.offset, in_memory.offset, rtol=0, atol=1e-12 * terms.max())
     assert from_file.data_sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def test_a_csv_split_across_processes_gives_the_one_pass_result(tmp_path):
+    from affix.fit.passes import file_moments
+
+    values = table(np.random.default_rng(6), rows=3000)
+    path = tmp_path / "log.csv"
+    write_csv(path, ["a", "b", "c", "d"], values)
+    one, _, sha_one = file_moments(path, ["a", "b", "c", "d"], 5, chunk_rows=256, drop_invalid=False, workers=1)
+    split, _, sha_split = file_moments(path, ["a", "b", "c", "d"], 5, chunk_rows=256, drop_invalid=False, workers=3)
+    assert sha_one == sha_split == hashlib.sha256(path.read_bytes()).hexdigest()
+    for a, b in zip(one, split):
+        assert a.count == b.count
+        np.testing.assert_allclose(a.mean, b.mean, rtol=1e-12)
+        np.testing.assert_allclose(a.scatter, b.scatter, rtol=1e-12, atol=1e-12 * np.abs(b.scatter).max())
+
+
+def test_rows_are_numbered_across_the_whole_file_when_split(tmp_path):
+    from affix.fit.passes import file_moments
+
+    lines = [f"{i},{i % 17}" for i in range(3000)]
+    lines[2500] = "2500,nan"
+    lines[2700] = "2700,inf"
+    path = write_lines(tmp_path / "log.csv", lines)
+    with pytest.raises(DataError, match=r"row 2501: 2 row\(s\) hold NaN"):
+        file_moments(path, ["a", "b"], 5, chunk_rows=100, drop_invalid=False, workers=2)
+    parts, dropped, _ = file_moments(path, ["a", "b"], 5, chunk_rows=100, drop_invalid=True, workers=2)
+    assert dropped == 2 and sum(p.count for p in parts) == 2998
+    lines[2800] = "2800,seven"
+    path = write_lines(tmp_path / "log.csv", lines)
+    with pytest.raises(DataError, match=r"row 2801, column 'b': not a number: 'seven'"):
+        file_moments(path, ["a", "b"], 5, chunk_rows=100, drop_invalid=True, workers=2)
+
+
+def write_lines(path, lines):
+    path.write_text("a,b\n" + "\n".join(lines) + "\n")
+    return path

@@ -12,15 +12,15 @@ import warnings
 from collections.abc import Mapping
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
 from affix.errors import DataError, FitError, UsageError
 from affix.fit import conditioning
 from affix.fit.adopt import adopt, default_names, is_fitted_linear
 from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
-from affix.intake import DEFAULT_CHUNK_ROWS, from_array, read_chunks
+from affix.fit.passes import file_moments, stream_moments
+from affix.intake import DEFAULT_CHUNK_ROWS, from_array
 from affix.model import Model
-from affix.statistics import accumulate, merge_all
+from affix.statistics import merge_all
 
 
 class CollinearityWarning(UserWarning):
@@ -60,15 +60,17 @@ def fit(
         raise UsageError(f"must be a finite number >= 0, got {ridge!r}", option="ridge")
     if folds == 1 or folds < 0:
         raise UsageError(f"must be 0 (no cross-validation) or at least 2, got {folds}", option="folds")
-    inputs, outputs, stream = _open(data, inputs, outputs, chunk_rows, drop_invalid)
+    inputs, outputs, path, values = _open(data, inputs, outputs)
     m, width = len(inputs), len(inputs) + len(outputs)
-    # The products here are skinny (rows x a few columns): one BLAS thread
-    # does them at memory speed, and more would spin against the threads that
-    # parse and hash the file, which on a small machine costs many times over.
-    with threadpool_limits(limits=1, user_api="blas"):
-        parts = accumulate(stream, width, folds)
+    if path is not None:
+        parts, dropped, sha256 = file_moments(
+            path, inputs + outputs, folds, chunk_rows=chunk_rows, drop_invalid=drop_invalid
+        )
+    else:
+        stream = from_array(values, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
+        parts, dropped, sha256 = stream_moments(stream, width, folds), stream.rows_dropped, None
     moments = merge_all(parts, width)
-    _check_rows(moments, inputs, stream.path)
+    _check_rows(moments, inputs, path)
     r = correlation(moments, m)
     condition = conditioning.condition_number(r)
     solution = _solve(moments, m, ridge, r, condition, inputs)
@@ -91,17 +93,17 @@ def fit(
         ridge=float(ridge),
         folds=folds,
         condition_number=condition if math.isfinite(condition) else None,
-        data_sha256=stream.sha256,
-        dropped_rows=stream.rows_dropped,
+        data_sha256=sha256,
+        dropped_rows=dropped,
     )
 
 
-def _open(data, inputs, outputs, chunk_rows, drop_invalid):
+def _open(data, inputs, outputs):
+    """(inputs, outputs, path, None) for a file, (inputs, outputs, None, rows) for data in memory."""
     if isinstance(data, (str, os.PathLike)):
         if inputs is None or outputs is None:
             raise UsageError("fitting a file needs the names of its input and output columns")
-        inputs, outputs = _check_names(inputs, outputs)
-        return inputs, outputs, read_chunks(data, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
+        return (*_check_names(inputs, outputs), data, None)
     if isinstance(data, Mapping) or hasattr(data, "columns"):
         if inputs is None or outputs is None:
             raise UsageError("fitting named columns needs the names of the input and output columns")
@@ -109,8 +111,8 @@ def _open(data, inputs, outputs, chunk_rows, drop_invalid):
         missing = [name for name in inputs + outputs if name not in data]
         if missing:
             raise DataError(f"no column '{missing[0]}' (available: {', '.join(map(str, data.keys()))})")
-        values = np.column_stack([np.asarray(data[name], dtype=np.float64) for name in inputs + outputs])
-    elif isinstance(data, (tuple, list)) and len(data) == 2:
+        return inputs, outputs, None, np.column_stack([np.asarray(data[n], dtype=np.float64) for n in inputs + outputs])
+    if isinstance(data, (tuple, list)) and len(data) == 2:
         y, x = (np.asarray(a, dtype=np.float64) for a in data)
         y, x = y.reshape(len(y), -1), x.reshape(len(x), -1)
         if len(y) != len(x):
@@ -119,11 +121,14 @@ def _open(data, inputs, outputs, chunk_rows, drop_invalid):
         outputs = default_names("x", x.shape[1]) if outputs is None else outputs
         inputs, outputs = _check_names(inputs, outputs)
         if (len(inputs), len(outputs)) != (y.shape[1], x.shape[1]):
-            raise UsageError(f"{len(inputs)} input and {len(outputs)} output names for arrays of {y.shape[1]} and {x.shape[1]} columns")
-        values = np.hstack([y, x])
-    else:
-        raise UsageError(f"cannot fit {type(data).__name__}: give a file path, a mapping of columns, a pair (y, x) or a fitted estimator")
-    return inputs, outputs, from_array(values, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
+            raise UsageError(
+                f"{len(inputs)} input and {len(outputs)} output names for arrays of "
+                f"{y.shape[1]} and {x.shape[1]} columns"
+            )
+        return inputs, outputs, None, np.hstack([y, x])
+    raise UsageError(
+        f"cannot fit {type(data).__name__}: give a file path, a mapping of columns, a pair (y, x) or a fitted estimator"
+    )
 
 
 def _check_names(inputs, outputs):

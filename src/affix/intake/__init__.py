@@ -23,7 +23,7 @@ from affix.intake.stream import ChunkStream
 
 DEFAULT_CHUNK_ROWS = 1 << 16
 
-__all__ = ["DEFAULT_CHUNK_ROWS", "ChunkStream", "column_names", "from_array", "read_chunks"]
+__all__ = ["DEFAULT_CHUNK_ROWS", "ChunkStream", "column_names", "from_array", "partition", "read_chunks"]
 
 
 def column_names(path) -> list[str]:
@@ -32,11 +32,15 @@ def column_names(path) -> list[str]:
     return _format(path).column_names(path)
 
 
-def read_chunks(path, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_invalid: bool = False) -> ChunkStream:
+def read_chunks(
+    path, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_invalid: bool = False, part=None
+) -> ChunkStream:
     """The chosen columns of the file as one pass of float64 chunks (see ChunkStream).
 
     Missing files and columns, ambiguous names and unreadable headers are
     reported here, before any row is read; cell-level problems during the pass.
+    ``part``, one of :func:`partition`'s ranges, reads only that part of the
+    file (without the digest, which covers whole files).
     """
     path = _existing(path)
     columns = list(columns)
@@ -50,7 +54,19 @@ def read_chunks(path, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_inv
             raise DataError(f"the header names column '{name}' {counts[name]} times, so it is ambiguous", path)
     if chunk_rows < 1:
         raise ValueError("chunk_rows must be positive")
-    return ChunkStream(path, columns, fmt.raw_chunks(path, columns, chunk_rows), drop_invalid)
+    if part is None:
+        return ChunkStream(path, columns, fmt.raw_chunks(path, columns, chunk_rows), drop_invalid)
+    first_row = csv_format.rows_before(path, part[0])
+    raw = csv_format.raw_chunks(path, columns, chunk_rows, byte_range=part, rows_skipped=first_row)
+    return ChunkStream(path, columns, raw, drop_invalid, first_row=first_row, digest=False)
+
+
+def partition(path, parts: int) -> list:
+    """Ranges that split a CSV file's rows into up to ``parts`` pieces that can
+    be read in parallel (``read_chunks(..., part=range)``); [None] (the whole
+    file) for other formats, whose reading costs too little to split."""
+    path = _existing(path)
+    return csv_format.partition(path, parts) if _format(path) is csv_format else [None]
 
 
 def from_array(values, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_invalid: bool = False) -> ChunkStream:

@@ -10,6 +10,8 @@ caller); cells must not contain line breaks.
 from __future__ import annotations
 
 import csv
+import io
+import os
 import re
 
 import numpy as np
@@ -17,6 +19,7 @@ import numpy as np
 from affix.errors import DataError
 
 MISSING = ["", "nan", "NaN", "NAN"]
+_BLOCK = 1 << 20
 _FIELD_COUNT = re.compile(r"Expected (\d+) fields in line (\d+), saw (\d+)")
 
 
@@ -31,36 +34,92 @@ def column_names(path) -> list[str]:
     return [name.strip() for name in header]
 
 
-def raw_chunks(path, columns, chunk_rows):
-    """Float64 arrays (k, len(columns)) in file order; NaN marks missing cells."""
+def data_start(path) -> int:
+    """Byte offset of the first data line (just past the header line)."""
+    with open(path, "rb") as f:
+        return len(f.readline())
+
+
+def partition(path, parts: int) -> list[tuple[int, int]]:
+    """Up to ``parts`` byte ranges of whole lines that together cover the data rows."""
+    start, size = data_start(path), os.path.getsize(path)
+    cuts = [start]
+    with open(path, "rb") as f:
+        for i in range(1, parts):
+            f.seek(start + (size - start) * i // parts)
+            f.readline()  # move on to the start of the next line
+            if cuts[-1] < f.tell() < size:
+                cuts.append(f.tell())
+    return list(zip(cuts, cuts[1:] + [size]))
+
+
+def rows_before(path, offset: int) -> int:
+    """How many data rows lie before byte ``offset`` (a line start)."""
+    start, count = data_start(path), 0
+    with open(path, "rb") as f:
+        f.seek(start)
+        for block in iter(lambda: f.read(min(_BLOCK, offset - f.tell())), b""):
+            count += block.count(b"\n")
+    return count
+
+
+def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0):
+    """Float64 arrays (k, len(columns)) in file order; NaN marks missing cells.
+
+    ``byte_range`` (from :func:`partition`) reads only those lines, which
+    follow ``rows_skipped`` data rows; by default all data lines.
+    """
     import pandas as pd  # here, not at the top: only CSV needs it, and it is slow to import
 
     header = column_names(path)
     positions = [header.index(name) for name in columns]
     used = sorted(set(positions))
     order = [used.index(p) for p in positions]
+    start, end = byte_range or (data_start(path), os.path.getsize(path))
+    first_row = stream_first = 1 + rows_skipped  # rows count from 1, the header not included
+    lines = io.BufferedReader(_ByteRange(path, start, end), _BLOCK)
     reader = pd.read_csv(
-        path,
+        lines,
         header=None,
-        skiprows=1,
         usecols=used,
         chunksize=chunk_rows,
         keep_default_na=False,
         na_values=MISSING,
-        skipinitialspace=True,
-        encoding="utf-8-sig",
+        skip_blank_lines=False,  # a blank line is a row of empty cells, and keeps row numbers right
+        encoding="utf-8",
     )
-    first_row = 1  # rows are counted from 1, the header not included
     try:
-        with reader:
+        with lines, reader:
             for frame in reader:
                 values = _numeric(frame, path, first_row, [header[p] for p in used])
                 first_row += len(values)
                 yield values[:, order]
     except pd.errors.ParserError as exc:
-        raise DataError(_parser_message(exc), path) from None
+        raise DataError(_parser_message(exc, stream_first), path) from None
     except UnicodeDecodeError:
         raise DataError("not a text CSV file (it is not UTF-8)", path) from None
+
+
+class _ByteRange(io.RawIOBase):
+    """The bytes [start, end) of a file, as a file of their own."""
+
+    def __init__(self, path, start, end):
+        self._file = open(path, "rb", buffering=0)
+        self._file.seek(start)
+        self._left = end - start
+
+    def readable(self):
+        return True
+
+    def readinto(self, buffer):
+        view = memoryview(buffer)[: self._left]
+        count = self._file.readinto(view)
+        self._left -= count
+        return count
+
+    def close(self):
+        self._file.close()
+        super().close()
 
 
 def _numeric(frame, path, first_row, names) -> np.ndarray:
@@ -79,9 +138,9 @@ def _numeric(frame, path, first_row, names) -> np.ndarray:
     return frame.to_numpy(dtype=np.float64)
 
 
-def _parser_message(exc) -> str:
+def _parser_message(exc, first_row) -> str:
     found = _FIELD_COUNT.search(str(exc))
     if found:
         expected, line, saw = found.groups()
-        return f"row {int(line) - 1}: has {saw} fields where the header has {expected}"
+        return f"row {first_row + int(line) - 1}: has {saw} fields where the first row has {expected}"
     return f"malformed CSV ({' '.join(str(exc).split())})"

@@ -19,16 +19,18 @@ class ChunkStream:
     data in memory).
     """
 
-    def __init__(self, path, columns, raw_chunks, drop_invalid=False):
+    def __init__(self, path, columns, raw_chunks, drop_invalid=False, first_row=0, digest=True):
         self.path, self.columns, self.drop_invalid = path, list(columns), drop_invalid
+        self.first_row = first_row  # rows of the file before this pass (when it reads one part)
         self._raw = raw_chunks
+        self._digest = digest and path is not None
         self.rows_read = 0
         self.rows_dropped = 0
         self.first_invalid = None
         self.sha256 = None
 
     def __iter__(self):
-        digest = FileDigest(self.path) if self.path is not None else None
+        digest = FileDigest(self.path) if self._digest else None
         for chunk in self._raw:
             valid = np.isfinite(chunk).all(axis=1)
             if not valid.all():
@@ -38,18 +40,24 @@ class ChunkStream:
             if len(chunk) and (self.drop_invalid or not self.rows_dropped):
                 yield chunk
         self.sha256 = digest.hexdigest() if digest else None
-        if self.rows_dropped and not self.drop_invalid:
-            row, column = self.first_invalid
-            raise DataError(
-                f"{self.rows_dropped} row(s) hold NaN, infinite or empty values, the first in column "
-                f"'{column}'; fix them or pass --drop-invalid to leave such rows out",
-                self.path,
-                row=row,
-            )
+        if not self.drop_invalid:
+            check_invalid(self.path, self.rows_dropped, self.first_invalid)
 
     def _note_invalid(self, chunk, valid):
         if self.first_invalid is None:
             i = int(np.argmin(valid))
             j = int(np.argmin(np.isfinite(chunk[i])))
-            self.first_invalid = (self.rows_read + i + 1, self.columns[j])
+            self.first_invalid = (self.first_row + self.rows_read + i + 1, self.columns[j])
         self.rows_dropped += int(np.count_nonzero(~valid))
+
+
+def check_invalid(path, count: int, first_invalid) -> None:
+    """The error for rows holding NaN, infinities or empty cells, when they are not to be dropped."""
+    if count:
+        row, column = first_invalid
+        raise DataError(
+            f"{count} row(s) hold NaN, infinite or empty values, the first in column "
+            f"'{column}'; fix them or pass --drop-invalid to leave such rows out",
+            path,
+            row=row,
+        )

@@ -73,10 +73,11 @@ def merge_folds(a: list[Moments], b: list[Moments]) -> list[Moments]:
     return [x.merge(y) for x, y in zip(a, b)]
 
 
-def accumulate(chunks, width: int, folds: int, seed: int = FOLD_SEED) -> list[Moments]:
-    """One pass over chunks (in stream order) to per-fold moments; folds <= 1 gives one part."""
+def accumulate(chunks, width: int, folds: int, seed: int = FOLD_SEED, first_row: int = 0) -> list[Moments]:
+    """One pass over chunks (in stream order, the first row having index
+    first_row) to per-fold moments; folds <= 1 gives one part."""
     parts = [Moments.empty(width) for _ in range(max(folds, 1))]
-    row = 0
+    row = first_row
     for chunk in chunks:
         parts = merge_folds(parts, chunk_moments(chunk, row, folds, seed))
         row += len(chunk)
