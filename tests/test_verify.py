@@ -33,9 +33,22 @@ def test_corner_sets_follow_the_box():
 
 def test_beyond_the_box_reaches_the_type_limits():
     sets = vector_sets([(-5, 5), (0, 9)], "int8_t", n_random=100, seed=0)
-    assert sets["beyond the box"].min() == -128 and sets["beyond the box"].max() == 127
-    assert len(sets["random"]) == 100
-    assert ((sets["random"] >= [-5, 0]) & (sets["random"] <= [5, 9])).all()
+    beyond = sets["beyond the box"].chunk(0)
+    assert beyond.min() == -128 and beyond.max() == 127
+    random = sets["random"].chunk(0)
+    assert len(random) == 100
+    assert ((random >= [-5, 0]) & (random <= [5, 9])).all()
+
+
+def test_random_vectors_come_in_bounded_chunks_that_repeat():
+    from affix.verify.vectors import CHUNK_ROWS
+
+    n = 2 * CHUNK_ROWS + 5
+    sets = vector_sets([(-5, 5)], "int8_t", n_random=n, seed=4)
+    chunks = list(sets["random"].chunks())
+    assert [len(c) for c in chunks] == [CHUNK_ROWS, CHUNK_ROWS, 5]
+    assert np.array_equal(sets["random"].chunk(1), chunks[1])  # same seed, same vectors: a failure can be replayed
+    assert not np.array_equal(chunks[0][:5], chunks[1][:5])
 
 
 def test_cli_emit_then_verify_passes(tmp_path):

@@ -120,7 +120,11 @@ def verify(
 def _check_c(out_dir, manifest, sets, reference, cache_dir) -> list[Result]:
     code = load_c(out_dir, manifest, cache_dir=cache_dir)
     label = f"C {manifest['name']}.c ({manifest['arith']}, {manifest['style']})"
-    return [compare(label, name, y, reference.evaluate(y), code.evaluate(y)) for name, y in sets.items()]
+    results = []
+    for vector_set in sets.values():
+        parts = [compare(label, vector_set.name, y, reference.evaluate(y), code.evaluate(y)) for y in vector_set.chunks()]
+        results.append(_merged(label, vector_set.name, parts))
+    return results
 
 
 def _check_micropython(out_dir, manifest, sets, reference, limit: int) -> list[Result]:
@@ -132,10 +136,10 @@ def _check_micropython(out_dir, manifest, sets, reference, limit: int) -> list[R
         raise FileFormatError("listed in the manifest but missing", module)
     results = []
     for variant in variants(reference):
-        for name, y in sets.items():
-            subset = _spread(y, limit)
-            actual = run_micropython(module, subset, variant=variant)
-            results.append(compare(f"MicroPython {module.name} ({variant})", name, subset, reference.evaluate(subset), actual))
+        label = f"MicroPython {module.name} ({variant})"
+        for vector_set in sets.values():
+            y = vector_set.sample(limit)
+            results.append(compare(label, vector_set.name, y, reference.evaluate(y), run_micropython(module, y, variant=variant)))
     with tempfile.TemporaryDirectory(prefix="affix-mpy-") as tmp:  # the .mpy is a check, not an output
         cross_compile(module, march="armv7emsp", out=Path(tmp) / f"{manifest['name']}.mpy")
     return results
@@ -152,8 +156,6 @@ def compare(artefact: str, vector_set: str, y, expected, actual) -> Result:
     return Result(artefact, vector_set, len(y), int(bad.size), examples)
 
 
-def _spread(y: np.ndarray, limit: int) -> np.ndarray:
-    """At most ``limit`` rows spread evenly over ``y`` (keeping its first and last)."""
-    if len(y) <= limit:
-        return y
-    return y[np.linspace(0, len(y) - 1, limit).round().astype(int)]
+def _merged(artefact: str, vector_set: str, parts: list[Result]) -> Result:
+    examples = [e for part in parts for e in part.examples][:SHOWN_MISMATCHES]
+    return Result(artefact, vector_set, sum(p.count for p in parts), sum(p.mismatches for p in parts), examples)
