@@ -66,7 +66,11 @@ def partition(path, parts: int) -> list:
     be read in parallel (``read_chunks(..., part=range)``); [None] (the whole
     file) for other formats, whose reading costs too little to split."""
     path = _existing(path)
-    return csv_format.partition(path, parts) if _format(path) is csv_format else [None]
+    if _format(path) is not csv_format:
+        return [None]
+    import pandas  # noqa: F401 -- loaded once here, so worker processes forked next share it
+
+    return csv_format.partition(path, parts)
 
 
 def from_array(values, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_invalid: bool = False) -> ChunkStream:

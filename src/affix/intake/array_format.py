@@ -34,6 +34,12 @@ def raw_chunks(path, columns, chunk_rows):
         while remaining:
             k = min(chunk_rows, remaining)
             remaining -= k
+            if len(wanted) == 1:  # one stored array: a single copy, gathering columns only if needed
+                ((source, pairs),) = wanted.items()
+                positions = [p for _, p in pairs]
+                rows = source.read(k)
+                yield (rows if positions == list(range(source.width)) else rows[:, positions]).astype(np.float64)
+                continue
             chunk = np.empty((k, len(columns)))
             for source, pairs in wanted.items():
                 chunk[:, [j for j, _ in pairs]] = source.read(k)[:, [p for _, p in pairs]]

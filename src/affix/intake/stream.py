@@ -32,11 +32,14 @@ class ChunkStream:
     def __iter__(self):
         digest = FileDigest(self.path) if self._digest else None
         for chunk in self._raw:
-            valid = np.isfinite(chunk).all(axis=1)
-            if not valid.all():
+            count = len(chunk)
+            # One sum is non-finite when any cell is (or when finite ones
+            # overflow): a cheap screen before the row-by-row look.
+            if not np.isfinite(chunk.sum()):
+                valid = np.isfinite(chunk).all(axis=1)
                 self._note_invalid(chunk, valid)
                 chunk = chunk[valid]
-            self.rows_read += len(valid)
+            self.rows_read += count
             if len(chunk) and (self.drop_invalid or not self.rows_dropped):
                 yield chunk
         self.sha256 = digest.hexdigest() if digest else None
@@ -44,6 +47,8 @@ class ChunkStream:
             check_invalid(self.path, self.rows_dropped, self.first_invalid)
 
     def _note_invalid(self, chunk, valid):
+        if valid.all():
+            return
         if self.first_invalid is None:
             i = int(np.argmin(valid))
             j = int(np.argmin(np.isfinite(chunk[i])))

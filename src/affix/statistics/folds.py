@@ -21,52 +21,54 @@ _GROUPS = 8192  # the dealing pattern repeats every k * _GROUPS rows
 
 @lru_cache(maxsize=8)
 def _pattern(folds: int, seed: int) -> np.ndarray:
+    """The dealing pattern, twice over: any run of up to one period is a slice of it."""
     rng = np.random.default_rng(seed)
     groups = np.tile(np.arange(folds, dtype=np.int8), (_GROUPS, 1))
-    return rng.permuted(groups, axis=1).ravel()
+    return np.tile(rng.permuted(groups, axis=1).ravel(), 2)
 
 
 def fold_of(first_row: int, count: int, folds: int, seed: int = FOLD_SEED) -> np.ndarray:
     """Fold label (0..folds-1) of rows first_row .. first_row+count-1."""
     pattern = _pattern(folds, seed)
-    return np.take(pattern, np.arange(first_row, first_row + count) % len(pattern))
+    period = len(pattern) // 2
+    offset = first_row % period
+    if count <= period:
+        return pattern[offset : offset + count]
+    return np.resize(pattern[offset : offset + period], count)
 
 
 def chunk_moments(chunk, first_row: int, folds: int, seed: int = FOLD_SEED) -> list[Moments]:
     """Moments of each fold's share of one chunk, whose first row has index first_row.
 
     The rows are gathered fold by fold (one take, not one boolean mask per
-    fold), shifted by the chunk's first row and given a column of ones, so one
-    product Z^T Z per fold yields its count, sum and scatter together.  The
-    shift keeps the subtraction of the mean's outer product well conditioned.
+    fold) and shifted by the chunk's first row, which keeps the final
+    subtraction of the mean's outer product well conditioned; then each fold
+    needs one column sum and one product Z^T Z.
     """
     chunk = np.asarray(chunk, dtype=np.float64)
     count, width = chunk.shape
     folds = max(folds, 1)
     if count == 0:
         return [Moments.empty(width) for _ in range(folds)]
+    shift = chunk[0].copy()
     if folds == 1:
-        ordered, sizes = chunk, np.array([count])
+        shifted, sizes = chunk - shift, [count]
     else:
         labels = fold_of(first_row, count, folds, seed)
-        ordered = np.take(chunk, np.argsort(labels, kind="stable"), axis=0)
+        shifted = np.take(chunk, np.argsort(labels, kind="stable"), axis=0)
+        shifted -= shift
         sizes = np.bincount(labels, minlength=folds)
-    shift = chunk[0].copy()
-    z = np.empty((count, width + 1))
-    np.subtract(ordered, shift, out=z[:, :width])
-    z[:, width] = 1.0
     parts, start = [], 0
     for size in sizes:
-        part = z[start : start + size]
+        part = shifted[start : start + size]
         start += size
-        parts.append(_from_shifted_products(part.T @ part, shift) if size else Moments.empty(width))
+        parts.append(_from_shifted(part, shift) if size else Moments.empty(width))
     return parts
 
 
-def _from_shifted_products(g: np.ndarray, shift: np.ndarray) -> Moments:
-    width = len(shift)
-    n, sums = g[width, width], g[:width, width]
-    return Moments(int(round(n)), shift + sums / n, g[:width, :width] - np.outer(sums, sums) / n)
+def _from_shifted(part: np.ndarray, shift: np.ndarray) -> Moments:
+    n, sums = len(part), part.sum(axis=0)
+    return Moments(n, shift + sums / n, part.T @ part - np.outer(sums, sums) / n)
 
 
 def merge_folds(a: list[Moments], b: list[Moments]) -> list[Moments]:
