@@ -23,6 +23,9 @@ from conftest import require, run_affix
 from plans import random_plan
 
 C_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
+# Beyond the required set, what embedded coding rules commonly add (common practice).
+STRICTER = ["-Wshadow", "-Wcast-qual", "-Wstrict-prototypes", "-Wmissing-prototypes", "-Wundef", "-Wdouble-promotion",
+            "-Wcast-align", "-Wredundant-decls"]
 CXX_FLAGS = ["-x", "c++", "-std=c++11", "-Wall", "-Wextra", "-Werror"]
 
 PLANS = {  # a spread of types: signed/unsigned inputs, 8..32-bit coefficients, 32/64-bit accumulators
@@ -57,7 +60,7 @@ def test_compiles_cleanly_as_c99_and_cxx11(tmp_path, plan_kind, arith, style):
     gcc, gxx = require("gcc"), require("g++")
     _, out, _ = _emit(tmp_path, plan_kind, arith, style)
     for level in ("-O0", "-O2"):
-        _compile(gcc, C_FLAGS, out / "probe.c", tmp_path, level, "-DPROBE_SELFTEST")
+        _compile(gcc, C_FLAGS + STRICTER, out / "probe.c", tmp_path, level, "-DPROBE_SELFTEST")
         _compile(gxx, CXX_FLAGS, out / "probe.c", tmp_path, level, "-DPROBE_SELFTEST")
 
 
