@@ -82,6 +82,7 @@ BAD_INPUTS = {
         r"row 4: 2 row\(s\) hold NaN, infinite or empty values, the first in column 'Fx'; .*--drop-invalid",
     ),
     "too few rows": (lambda p: write(p / "short.csv", "b1,b2,b3,Fx,Fz\n1,2,3,4,5\n2,3,1,5,6\n3,1,2,6,7\n"), [], r"only 3 usable row\(s\); fitting 3 input\(s\) needs at least 5"),
+    "header only": (lambda p: write(p / "empty.csv", "b1,b2,b3,Fx,Fz\n"), [], r"only 0 usable row\(s\)"),
     "constant input": (
         lambda p: write(p / "flat.csv", "b1,b2,b3,Fx,Fz\n" + "".join(f"{i},{i * i % 7},4,{i},{-i}\n" for i in range(20))),
         [],

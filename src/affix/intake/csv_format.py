@@ -77,19 +77,20 @@ def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0):
     order = [used.index(p) for p in positions]
     start, end = byte_range or (data_start(path), os.path.getsize(path))
     first_row = stream_first = 1 + rows_skipped  # rows count from 1, the header not included
+    if start >= end:
+        return  # a header and no rows: the fit reports too few rows
     lines = io.BufferedReader(_ByteRange(path, start, end), _BLOCK)
-    reader = pd.read_csv(
-        lines,
-        header=None,
-        usecols=used,
-        chunksize=chunk_rows,
-        keep_default_na=False,
-        na_values=MISSING,
-        skip_blank_lines=False,  # a blank line is a row of empty cells, and keeps row numbers right
-        encoding="utf-8",
-    )
     try:
-        with lines, reader:
+        with lines, pd.read_csv(
+            lines,
+            header=None,
+            usecols=used,
+            chunksize=chunk_rows,
+            keep_default_na=False,
+            na_values=MISSING,
+            skip_blank_lines=False,  # a blank line is a row of empty cells, and keeps row numbers right
+            encoding="utf-8",
+        ) as reader:
             for frame in reader:
                 values = _numeric(frame, path, first_row, [header[p] for p in used])
                 first_row += len(values)
