@@ -27,6 +27,7 @@ from plans import random_plan  # noqa: E402
 from affix.emit.templates import render  # noqa: E402
 from affix.emit.writer import emit  # noqa: E402
 from affix.verify.c_build import load_c  # noqa: E402
+from affix.verify.check import verify  # noqa: E402
 
 N_VECTORS = 4 * 10**6
 CALLGRIND_VECTORS = 64
@@ -57,6 +58,10 @@ def throughput(plan, tmp: Path) -> None:
         assert np.array_equal(code.evaluate(y[:10000]), reference.evaluate(y64[:10000]))
         t = best_time(lambda: code.evaluate(y))
         print(f"  cffi, emitted C ({style:8s})  {N_VECTORS / t:14.3e} vectors/s  ({t_ref / t:.1f}x the reference)")
+    # End to end: vector generation, the C, the reference and the comparison.
+    t = best_time(lambda: verify(tmp / "table", vectors=N_VECTORS, cache_dir=tmp / "cache"), repeats=2)
+    report = verify(tmp / "table", vectors=N_VECTORS, cache_dir=tmp / "cache")
+    print(f"  affix verify, whole run        {report.evaluations / t:14.3e} evaluations/s")
 
 
 def instructions(plan, tmp: Path) -> None:
