@@ -16,8 +16,8 @@ import numpy as np
 from affix.errors import DataError, FitError, UsageError
 from affix.fit import conditioning
 from affix.fit.adopt import adopt, default_names, is_fitted_linear
-from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
 from affix.fit.passes import file_moments, stream_moments
+from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
 from affix.intake import DEFAULT_CHUNK_ROWS, from_array
 from affix.model import Model
 from affix.statistics import merge_all

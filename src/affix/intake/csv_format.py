@@ -5,7 +5,10 @@ parse several times faster than when every cell is forced through the float
 parser).  A chunk whose column did not come out numeric is searched for the
 first offending cell, so the error names its row and column.  Empty cells and
 "nan" are missing values (reported, or dropped with drop_invalid, by the
-caller); cells must not contain line breaks.
+caller); so is a blank line (a row of empty cells) and a cell missing at the
+end of a short row.  Fields past the header's count are not read.  Cells must
+not contain line breaks: a file is split into parts at line breaks, so that
+parts can be parsed in parallel (see :func:`partition`).
 """
 from __future__ import annotations
 
