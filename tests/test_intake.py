@@ -45,6 +45,8 @@ def test_npy_columns_are_named_by_index(tmp_path):
     np.testing.assert_array_equal(whole(read_chunks(path, ["3", "1"], chunk_rows=33)), values[:, [3, 1]])
     np.save(path, values.astype(np.int16))
     np.testing.assert_array_equal(whole(read_chunks(path, ["0"], chunk_rows=33))[:, 0], values[:, 0].astype(np.int16))
+    np.save(path, values.astype(">f8"))  # big-endian, as written on another machine
+    np.testing.assert_array_equal(whole(read_chunks(path, ["0", "1", "2", "3"], chunk_rows=33)), values)
 
 
 def test_npz_of_named_columns_or_of_one_array(tmp_path):

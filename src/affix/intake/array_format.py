@@ -38,7 +38,9 @@ def raw_chunks(path, columns, chunk_rows):
                 ((source, pairs),) = wanted.items()
                 positions = [p for _, p in pairs]
                 rows = source.read(k)
-                yield (rows if positions == list(range(source.width)) else rows[:, positions]).astype(np.float64)
+                if positions != list(range(source.width)):
+                    rows = rows[:, positions]
+                yield rows.astype(np.float64, copy=False)
                 continue
             chunk = np.empty((k, len(columns)))
             for source, pairs in wanted.items():
@@ -74,11 +76,16 @@ class _Source:
         self.dtype, self.rows = dtype, shape[0]
 
     def read(self, k) -> np.ndarray:
-        need = k * self.width * self.dtype.itemsize
-        data = self.stream.read(need)
-        if len(data) != need:
-            raise DataError("the file ends before the array it declares", self.path)
-        return np.frombuffer(data, dtype=self.dtype).reshape(k, self.width)
+        """The next k rows, read straight into a fresh array (no intermediate bytes object)."""
+        rows = np.empty((k, self.width), dtype=self.dtype)
+        target = memoryview(rows.reshape(-1).view(np.uint8))
+        filled = 0
+        while filled < len(target):
+            count = self.stream.readinto(target[filled:])
+            if not count:
+                raise DataError("the file ends before the array it declares", self.path)
+            filled += count
+        return rows
 
 
 def _of(key):

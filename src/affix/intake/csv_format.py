@@ -97,7 +97,7 @@ def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0):
             for frame in reader:
                 values = _numeric(frame, path, first_row, [header[p] for p in used])
                 first_row += len(values)
-                yield values[:, order]
+                yield values if order == list(range(len(order))) else values[:, order]
     except pd.errors.ParserError as exc:
         raise DataError(_parser_message(exc, stream_first), path) from None
     except UnicodeDecodeError:
