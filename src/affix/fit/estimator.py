@@ -18,7 +18,7 @@ from affix.fit import conditioning
 from affix.fit.adopt import adopt, default_names, is_fitted_linear
 from affix.fit.passes import file_moments, stream_moments
 from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
-from affix.intake import DEFAULT_CHUNK_ROWS, from_array
+from affix.intake import from_array
 from affix.model import Model
 from affix.statistics import merge_all
 
@@ -35,7 +35,7 @@ def fit(
     ridge: float = 0.0,
     folds: int = 5,
     drop_invalid: bool = False,
-    chunk_rows: int = DEFAULT_CHUNK_ROWS,
+    chunk_rows: int | None = None,
 ) -> Model:
     """Fit x_hat = gain @ y + offset by least squares.
 

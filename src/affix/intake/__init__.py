@@ -21,9 +21,7 @@ from affix.errors import DataError
 from affix.intake import array_format, csv_format
 from affix.intake.stream import ChunkStream
 
-DEFAULT_CHUNK_ROWS = 1 << 16
-
-__all__ = ["DEFAULT_CHUNK_ROWS", "ChunkStream", "column_names", "from_array", "partition", "read_chunks"]
+__all__ = ["ChunkStream", "column_names", "from_array", "partition", "read_chunks"]
 
 
 def column_names(path) -> list[str]:
@@ -32,10 +30,11 @@ def column_names(path) -> list[str]:
     return _format(path).column_names(path)
 
 
-def read_chunks(
-    path, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_invalid: bool = False, part=None
-) -> ChunkStream:
+def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False, part=None) -> ChunkStream:
     """The chosen columns of the file as one pass of float64 chunks (see ChunkStream).
+
+    Chunks hold at most ``chunk_rows`` rows; by default as many as the format
+    reads efficiently (``CHUNK_ROWS`` of its module), which bounds memory.
 
     Missing files and columns, ambiguous names and unreadable headers are
     reported here, before any row is read; cell-level problems during the pass.
@@ -52,6 +51,7 @@ def read_chunks(
             raise DataError(f"no column '{name}' (available: {', '.join(available)})", path)
         if counts[name] > 1:
             raise DataError(f"the header names column '{name}' {counts[name]} times, so it is ambiguous", path)
+    chunk_rows = fmt.CHUNK_ROWS if chunk_rows is None else chunk_rows
     if chunk_rows < 1:
         raise ValueError("chunk_rows must be positive")
     if part is None:
@@ -73,9 +73,10 @@ def partition(path, parts: int) -> list:
     return csv_format.partition(path, parts)
 
 
-def from_array(values, columns, *, chunk_rows: int = DEFAULT_CHUNK_ROWS, drop_invalid: bool = False) -> ChunkStream:
+def from_array(values, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False) -> ChunkStream:
     """Rows already in memory (k, len(columns)) as the same kind of pass as a file gives."""
     values = np.asarray(values, dtype=np.float64)
+    chunk_rows = array_format.CHUNK_ROWS if chunk_rows is None else chunk_rows
     slices = (values[start : start + chunk_rows] for start in range(0, len(values), chunk_rows))
     return ChunkStream(None, columns, slices, drop_invalid)
 

@@ -21,6 +21,7 @@ import numpy as np
 
 from affix.errors import DataError
 
+CHUNK_ROWS = 1 << 16  # pandas' per-chunk overhead is small against this many rows
 MISSING = ["", "nan", "NaN", "NAN"]
 _BLOCK = 1 << 20
 _FIELD_COUNT = re.compile(r"Expected (\d+) fields in line (\d+), saw (\d+)")

@@ -17,6 +17,11 @@ from affix.statistics.moments import Moments, merge_all
 
 FOLD_SEED = 20261201
 _GROUPS = 8192  # the dealing pattern repeats every k * _GROUPS rows
+# Chunks are reduced in blocks of this many rows: small enough that the
+# gather, shift, sums and product of a block stay in the CPU cache (about
+# twice as fast as whole 65536-row chunks), large enough that the per-block
+# Python work stays small.
+BLOCK_ROWS = 8192
 
 
 @lru_cache(maxsize=8)
@@ -81,7 +86,9 @@ def accumulate(chunks, width: int, folds: int, seed: int = FOLD_SEED, first_row:
     parts = [Moments.empty(width) for _ in range(max(folds, 1))]
     row = first_row
     for chunk in chunks:
-        parts = merge_folds(parts, chunk_moments(chunk, row, folds, seed))
-        row += len(chunk)
+        for start in range(0, len(chunk), BLOCK_ROWS):
+            block = chunk[start : start + BLOCK_ROWS]
+            parts = merge_folds(parts, chunk_moments(block, row, folds, seed))
+            row += len(block)
     return parts
 
