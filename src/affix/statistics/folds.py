@@ -13,7 +13,7 @@ from functools import lru_cache
 
 import numpy as np
 
-from affix.statistics.moments import Moments, merge_all
+from affix.statistics.moments import Moments
 
 FOLD_SEED = 20261201
 _GROUPS = 8192  # the dealing pattern repeats every k * _GROUPS rows
