@@ -72,14 +72,14 @@ def tree_pss(pid) -> int:
 
 
 def measure(command) -> tuple[float, float]:
-    """Wall seconds and peak memory (MB, sampled every 10 ms) of
+    """Wall seconds and peak memory (MB, sampled every 25 ms) of
     one child process together with its descendants."""
     start = time.perf_counter()
     child = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     peak = 0
     while child.poll() is None:
         peak = max(peak, tree_pss(child.pid))
-        time.sleep(0.01)
+        time.sleep(0.025)
     wall = time.perf_counter() - start
     if child.returncode != 0:
         raise SystemExit(f"failed: {' '.join(map(str, command))}\n{child.stderr.read().decode()}")
