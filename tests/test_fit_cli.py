@@ -130,3 +130,16 @@ def test_demo_fits_the_wrist_sensor(tmp_path):
     # The invented sensor's bridge noise (4 counts at ~18 counts/N on Fz) bounds what a fit can reach.
     assert 0.05 < model.rms[2] < 0.5
     assert "Fz" in result.stdout and "step 2" in result.stdout
+
+
+def test_collinear_inputs_are_one_warning_line_and_the_fit_goes_ahead(tmp_path):
+    from statsmodels.datasets import longley  # NIST's Longley data, bundled with statsmodels
+
+    data = tmp_path / "longley.csv"
+    longley.load_pandas().data.to_csv(data, index=False)
+    out = tmp_path / "model.json"
+    result = run_affix("fit", data, "--inputs", "GNPDEFL,GNP,UNEMP,ARMED,POP,YEAR", "--outputs", "TOTEMP", "--out", out, "--folds", "4")
+    assert result.returncode == 0, result.stderr
+    (line,) = result.stderr.splitlines()
+    assert line.startswith("affix: warning: inputs GNP, POP, YEAR are nearly collinear (condition number ")
+    assert Model.load(out).condition_number > 1e3
