@@ -17,9 +17,9 @@ import numpy as np
 
 from affix.errors import DataError
 
-# Rows per read: a block of this size (about 1 MB at 16 float64 columns)
-# stays in the CPU cache while the statistics work through it.
-CHUNK_ROWS = 1 << 13
+# Rows per read: the statistics' block size (affix.statistics.folds.BLOCK_ROWS),
+# so a block read stays in the CPU cache while the statistics work through it.
+CHUNK_ROWS = 1 << 14
 
 
 def column_names(path) -> list[str]:
