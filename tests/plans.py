@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, rounding_constant
+from affix.arithmetic import INPUT_CTYPES, rounding_constant
 from affix.plan import Plan
 
 RANGE_KINDS = {  # name -> (lo, hi) of a type the inputs are drawn within

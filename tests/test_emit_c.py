@@ -110,7 +110,6 @@ def test_selftest_passes_and_catches_a_wrong_constant(tmp_path, arith, style):
 def test_int_header_states_the_contract(tmp_path):
     plan, out, _ = _emit(tmp_path, "int16-in int16-out acc32", "int", "table")
     header = (out / "probe.h").read_text()
-    source = (out / "probe.c").read_text()
     assert header.startswith("/* probe.h")
     usage = header.index("USAGE")
     assert usage < header.index("CAUTION") < header.index("WHAT IT COMPUTES") < header.index("#ifndef PROBE_H")

@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
+from affix import atomic
 from affix.errors import FileFormatError
 
 MODEL_FORMAT = "affix.model/1"
@@ -110,7 +111,7 @@ class Model:
         return hashlib.sha256(text.encode()).hexdigest()
 
     def save(self, path) -> None:
-        Path(path).write_text(json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n")
+        atomic.write_text(path, json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n")
 
     @classmethod
     def from_dict(cls, data, path=None) -> "Model":

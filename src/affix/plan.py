@@ -9,10 +9,10 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from affix import atomic
 from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS, IntegerEstimator
 from affix.errors import FileFormatError
 
@@ -103,15 +103,7 @@ class Plan:
         return hashlib.sha256(text.encode()).hexdigest()
 
     def save(self, path) -> None:
-        """Write atomically: a reader never sees half a plan, and a failed write leaves the old one."""
-        path = Path(path)
-        text = json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
-        temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-        try:
-            temporary.write_text(text)
-            os.replace(temporary, path)
-        finally:
-            temporary.unlink(missing_ok=True)
+        atomic.write_text(path, json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n")
 
     @classmethod
     def from_dict(cls, data, path=None) -> "Plan":

@@ -7,10 +7,9 @@ alone, never from the plan.
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 from pathlib import Path
 
+from affix import atomic
 from affix.emit.context import input_ctype
 from affix.emit.names import check_names
 from affix.errors import UsageError
@@ -53,8 +52,8 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
     out_dir.mkdir(parents=True, exist_ok=True)
     for files in rendered.values():
         for filename, text in files.items():
-            write_atomically(out_dir / filename, text)
-    write_atomically(out_dir / f"{name}.manifest.json", json.dumps(manifest, indent=2, allow_nan=False) + "\n")
+            atomic.write_text(out_dir / filename, text)
+    atomic.write_text(out_dir / f"{name}.manifest.json", json.dumps(manifest, indent=2, allow_nan=False) + "\n")
     return manifest
 
 
@@ -90,18 +89,6 @@ def manifest_for(plan, name: str, arith: str, style: str, files: dict, notes: li
         manifest["float_gain"] = [list(row) for row in plan.gain]
         manifest["float_offset"] = list(plan.offset)
     return manifest
-
-
-def write_atomically(path: Path, text: str) -> None:
-    """Write via a temporary file in the same folder and rename it into place."""
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as handle:
-            handle.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        os.unlink(tmp)
-        raise
 
 
 def _check_choice(value: str, choices, option: str) -> None:

@@ -6,7 +6,7 @@ from pathlib import Path
 import affix
 from affix.errors import UsageError
 from affix.workflow import demo_scenario
-from affix.workflow.fit_command import format_table, save_model, summarise
+from affix.workflow.fit_command import format_table, summarise
 
 
 def register(sub):
@@ -33,7 +33,7 @@ def run_demo(outdir) -> int:
     # Step 2: fit counts -> wrench.
     model_path = outdir / "wrist_model.json"
     model = affix.fit(data, demo_scenario.INPUTS, demo_scenario.OUTPUTS)
-    save_model(model, model_path)
+    model.save(model_path)
     print("step 2: fit")
     print(format_table(summarise(model, model_path)))
     return 0

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import json
-import os
 import sys
 import warnings
 from pathlib import Path
@@ -51,7 +50,7 @@ def run(args) -> int:
         print(f"affix: warning: {warning.message}", file=sys.stderr)
     if model.dropped_rows:
         print(f"affix: note: left out {model.dropped_rows} row(s) holding NaN, infinite or empty values", file=sys.stderr)
-    save_model(model, out)
+    model.save(out)
     summary = summarise(model, out)
     print(json.dumps(summary, indent=2) if args.json else format_table(summary))
     return 0
@@ -104,12 +103,3 @@ def _names(text: str, option: str) -> list[str]:
     if not all(names):
         raise UsageError(f"empty column name in '{text}'", option=option)
     return names
-
-
-def save_model(model, path: Path) -> None:
-    temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    try:
-        model.save(temporary)
-        os.replace(temporary, path)
-    finally:
-        temporary.unlink(missing_ok=True)
