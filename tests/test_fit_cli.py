@@ -1,4 +1,4 @@
-"""`affix fit` and `affix demo` as a user runs them, including every kind of bad input."""
+"""`affix fit` as a user runs it, including every kind of bad input."""
 from __future__ import annotations
 
 import json
@@ -120,16 +120,6 @@ def test_bad_input_is_one_line_exit_2_and_no_file(tmp_path, case):
     assert len(lines) == 1 and lines[0].startswith("affix: error: "), result.stderr
     assert re.search(expected, lines[0]), lines[0]
     assert not out.exists() and not list(tmp_path.glob(".model.json*"))
-
-
-def test_demo_fits_the_wrist_sensor(tmp_path):
-    result = run_affix("demo", tmp_path / "demo")
-    assert result.returncode == 0, result.stderr
-    model = Model.load(tmp_path / "demo" / "wrist_model.json")
-    assert model.outputs == ("Fx", "Fy", "Fz", "Tx", "Ty", "Tz") and len(model.inputs) == 7
-    # The invented sensor's bridge noise (4 counts at ~18 counts/N on Fz) bounds what a fit can reach.
-    assert 0.05 < model.rms[2] < 0.5
-    assert "Fz" in result.stdout and "step 2" in result.stdout
 
 
 def test_collinear_inputs_are_one_warning_line_and_the_fit_goes_ahead(tmp_path):

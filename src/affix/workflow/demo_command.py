@@ -1,39 +1,64 @@
-"""affix demo: the whole job on the bundled, invented wrist-sensor scenario."""
+"""affix demo: the whole job on the bundled, invented wrist-sensor scenario.
+
+Each step is the command a user would type, printed and then run through the
+same entry point, so the demo doubles as a worked example of the workflow.
+"""
 from __future__ import annotations
 
+import shlex
 from pathlib import Path
 
-import affix
 from affix.errors import UsageError
 from affix.workflow import demo_scenario
-from affix.workflow.fit_command import format_table, summarise
+
+# Worst-case deviation the integer code may add to each output: about a
+# sixth of the estimator's own RMS error, so rounding stays well below it.
+BUDGET = {"Fx": 0.05, "Fy": 0.05, "Fz": 0.1, "Tx": 0.003, "Ty": 0.003, "Tz": 0.002}
+ESTIMATOR = "wrist_ft"
 
 
 def register(sub):
     parser = sub.add_parser(
         "demo",
-        help="run affix on a generated calibration of a six-bridge wrist force/torque sensor",
-        description="Write the demo's calibration log to OUTDIR and fit the estimator on it.",
+        help="run the whole job on a generated calibration of a six-bridge wrist force/torque sensor",
+        description="Generate the demo's calibration log in OUTDIR, then fit, quantise, emit C and "
+        "MicroPython, and verify them, printing each command as it runs.",
     )
     parser.add_argument("outdir", help="folder for the demo's files (created if missing)")
     parser.set_defaults(run=lambda args: run_demo(args.outdir))
 
 
 def run_demo(outdir) -> int:
+    from affix.workflow.cli import main  # the CLI imports this module, so import it late
+
     outdir = Path(outdir)
     if outdir.exists() and not outdir.is_dir():
         raise UsageError(f"'{outdir}' exists and is not a folder", option="OUTDIR")
     outdir.mkdir(parents=True, exist_ok=True)
 
-    # Step 1: the calibration rig's log, generated.
     data = outdir / "wrist_calibration.csv"
     demo_scenario.write_csv(data)
-    print(f"step 1: wrote {demo_scenario.ROWS} calibration rows to {data}")
+    print(f"step 1: the calibration rig's log, {demo_scenario.ROWS} rows -> {data}\n")
 
-    # Step 2: fit counts -> wrench.
-    model_path = outdir / "wrist_model.json"
-    model = affix.fit(data, demo_scenario.INPUTS, demo_scenario.OUTPUTS)
-    model.save(model_path)
-    print("step 2: fit")
-    print(format_table(summarise(model, model_path)))
+    model, plan, firmware = outdir / "wrist_model.json", outdir / "wrist_plan.json", outdir / "firmware"
+    steps = [
+        ("fit counts to wrench",
+         ["fit", data, "--inputs", ",".join(demo_scenario.INPUTS), "--outputs", ",".join(demo_scenario.OUTPUTS),
+          "--out", model]),
+        ("choose the integer format against the budget",
+         ["quantize", model, "--range", "-32768:32767", "--range", "therm=0:4095",
+          "--output-type", "int16_t", "--budget", ",".join(f"{k}={v}" for k, v in BUDGET.items()),
+          "--data", data, "--out", plan]),
+        ("emit C and MicroPython", ["emit", plan, "--lang", "all", "--name", ESTIMATOR, "--out", firmware]),
+        ("verify them bit for bit", ["verify", firmware, "--data", data]),
+    ]
+    for number, (title, argv) in enumerate(steps, start=2):
+        argv = [str(a) for a in argv]
+        print(f"step {number}: {title}\n$ affix {shlex.join(argv)}")
+        status = main(argv)
+        print()
+        if status:
+            return status
+    print(f"done: {firmware / (ESTIMATOR + '.h')} and {ESTIMATOR}.c for C, {ESTIMATOR}.py for MicroPython")
     return 0
+

@@ -91,9 +91,9 @@ def format_table(summary) -> str:
         f"{'output':<{width}}  {'rms':>11}  {'cv rms':>11}  largest gains",
     ]
     for r in summary["per_output"]:
-        cv = "-" if r["cv_rms"] is None else f"{r['cv_rms']:.5g}"
+        cv = "-" if r["cv_rms"] is None else f"{r['cv_rms']:#.4g}"
         gains = ", ".join(f"{g['input']} {g['gain']:+.4g}" for g in r["largest_gains"])
-        lines.append(f"{r['output']:<{width}}  {r['rms']:>11.5g}  {cv:>11}  {gains}")
+        lines.append(f"{r['output']:<{width}}  {r['rms']:>#11.4g}  {cv:>11}  {gains}")
     lines.append(f"model written to {summary['model']}")
     return "\n".join(lines)
 
