@@ -68,6 +68,25 @@ def test_length_limits_follow_c99_5_2_4_1():
         check_names("est", ["y"], ["b" * 56])
 
 
+def test_estimator_name_may_not_shadow_a_micropython_module():
+    # The unix port's own list of built-in modules, read from the runtime
+    # (help('modules')); NAME.py on a device would hide the module of that name.
+    import subprocess
+
+    from conftest import require
+
+    listing = subprocess.run([require("micropython")], input="help('modules')\n", capture_output=True,
+                             text=True, timeout=30).stdout
+    table = listing.split("Plus any modules")[0]  # the closing sentence is no module
+    modules = {word.split("/")[0] for word in table.split()}
+    modules = {m for m in modules if m[0].isalpha()}  # __main__, _thread are refused as reserved anyway
+    assert {"time", "struct", "machine"} <= modules
+    for module in sorted(modules):
+        with pytest.raises(UsageError, match="shadow|reserved|MicroPython|builtin|keyword"):
+            check_names(module, ["y"], ["x"])
+    check_names("wrist_ft", ["time"], ["x"])  # an input may be called time: it is no module name
+
+
 def test_duplicate_and_bad_columns_name_the_column():
     with pytest.raises(UsageError, match="input name 'y'.*twice"):
         check_names("est", ["y", "y"], ["x"])

@@ -56,6 +56,16 @@ _C_RESERVED_PATTERNS = (
 # The MicroPython module uses these; shadowing any builtin would change the
 # meaning of the emitted code, so all of Python's builtins are refused too.
 MICROPYTHON_NAMES = frozenset({"const", "micropython", "viper", "native", "ptr8", "ptr16", "ptr32"})
+# The estimator name is also the MicroPython module's name (NAME.py), and a
+# file on the device shadows a built-in module of that name.  The first group
+# is what help('modules') lists in the unix port the tests run (1.29); the
+# second, modules of common MCU ports, is from memory.
+MICROPYTHON_MODULES = frozenset(
+    "array argparse asyncio binascii builtins cmath collections cryptolib deflate errno framebuf gc hashlib heapq "
+    "io json machine math micropython mip os platform random re requests select socket ssl struct sys termios "
+    "time tls uasyncio uctypes vfs websocket".split()
+    + "bluetooth btree esp esp32 espnow network neopixel onewire pyb rp2 stm uos utime wipy".split()
+)
 PYTHON_NAMES = frozenset(keyword.kwlist) | frozenset(getattr(keyword, "softkwlist", ())) | frozenset(dir(builtins))
 
 # C99 §5.2.4.1: 31 significant initial characters in an external identifier,
@@ -91,6 +101,8 @@ def check_identifier(name, what: str, max_length: int = INTERNAL_LENGTH) -> str:
 def check_names(name: str, inputs, outputs) -> None:
     """Check the estimator name and every input/output name, as emitted together."""
     check_identifier(name, "--name", EXTERNAL_LENGTH - _EXTERNAL_SUFFIX)
+    if name in MICROPYTHON_MODULES:
+        raise UsageError(f"'{name}.py' would shadow MicroPython's built-in module '{name}'; choose another name", "--name")
     for kind, names in (("input", inputs), ("output", outputs)):
         seen = set()
         for column in names:
