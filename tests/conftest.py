@@ -14,8 +14,15 @@ import sys
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
 
 IN_CI = os.environ.get("CI", "").lower() in ("1", "true", "yes")
+
+# CI replays the same examples every run so a red build always reproduces;
+# local runs draw new ones and keep what fails in .hypothesis/.
+settings.register_profile("ci", derandomize=True, print_blob=True)
+if IN_CI:
+    settings.load_profile("ci")
 
 
 def require(tool: str) -> str:
