@@ -1,7 +1,7 @@
 """affix: calibrated linear estimators x = A*y + b, fitted, proven in fixed point, emitted for MCUs."""
 from __future__ import annotations
 
-__version__ = "0.1.0"
+from affix._version import __version__
 
 from affix.errors import AffixError
 from affix.model import Model

@@ -13,12 +13,12 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-from dataclasses import dataclass, field
-from pathlib import Path
+from dataclasses import dataclass
 
 import numpy as np
 
-from affix import atomic
+from affix import files
+from affix._version import __version__
 from affix.errors import FileFormatError
 
 MODEL_FORMAT = "affix.model/1"
@@ -41,7 +41,7 @@ class Model:
     data_sha256: str | None = None
     source: str = "affix fit"
     dropped_rows: int = 0  # rows left out for NaN, infinite or empty values (drop_invalid)
-    tool_version: str = field(default_factory=lambda: _version())
+    tool_version: str = __version__
 
     def __post_init__(self):
         gain = np.asarray(self.gain, dtype=float)
@@ -111,7 +111,7 @@ class Model:
         return hashlib.sha256(text.encode()).hexdigest()
 
     def save(self, path) -> None:
-        atomic.write_text(path, json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n")
+        files.write_json(path, self.to_dict())
 
     @classmethod
     def from_dict(cls, data, path=None) -> "Model":
@@ -145,20 +145,7 @@ class Model:
 
     @classmethod
     def load(cls, path) -> "Model":
-        path = Path(path)
-        try:
-            data = json.loads(path.read_text())
-        except FileNotFoundError:
-            raise FileFormatError("no such model file", path) from None
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-            raise FileFormatError(f"not readable as JSON ({exc})", path) from None
-        return cls.from_dict(data, path)
-
-
-def _version() -> str:
-    from affix import __version__
-
-    return __version__
+        return cls.from_dict(files.read_json(path, "model"), path)
 
 
 def _names(value, key):

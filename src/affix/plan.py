@@ -9,10 +9,10 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-from dataclasses import dataclass, field
-from pathlib import Path
+from dataclasses import dataclass
 
-from affix import atomic
+from affix import files
+from affix._version import __version__
 from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS, IntegerEstimator
 from affix.errors import FileFormatError
 
@@ -60,7 +60,7 @@ class Plan:
     # "calibration" (the model's input moments) or "uniform-box" (none known).
     moments_source: str | None = None
     coefficient_method: str | None = None  # "plain" (round each) or "error-feedback" (searched)
-    tool_version: str = field(default_factory=lambda: _version())
+    tool_version: str = __version__
 
     def integer_estimator(self) -> IntegerEstimator:
         return IntegerEstimator.from_mapping(self.to_dict())
@@ -103,7 +103,7 @@ class Plan:
         return hashlib.sha256(text.encode()).hexdigest()
 
     def save(self, path) -> None:
-        atomic.write_text(path, json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n")
+        files.write_json(path, self.to_dict())
 
     @classmethod
     def from_dict(cls, data, path=None) -> "Plan":
@@ -176,20 +176,7 @@ class Plan:
 
     @classmethod
     def load(cls, path) -> "Plan":
-        path = Path(path)
-        try:
-            data = json.loads(path.read_text())
-        except FileNotFoundError:
-            raise FileFormatError("no such plan file", path) from None
-        except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-            raise FileFormatError(f"not readable as JSON ({exc})", path) from None
-        return cls.from_dict(data, path)
-
-
-def _version() -> str:
-    from affix import __version__
-
-    return __version__
+        return cls.from_dict(files.read_json(path, "plan"), path)
 
 
 def _int(value) -> int:

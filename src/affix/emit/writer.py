@@ -6,10 +6,9 @@ alone, never from the plan.
 """
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
-from affix import atomic
+from affix import files
 from affix.emit.context import input_ctype
 from affix.emit.names import check_names
 from affix.errors import UsageError
@@ -50,19 +49,19 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
     manifest = manifest_for(plan, name, arith, style, {k: sorted(v) for k, v in rendered.items()}, notes)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
-    for files in rendered.values():
-        for filename, text in files.items():
-            atomic.write_text(out_dir / filename, text)
-    atomic.write_text(out_dir / f"{name}.manifest.json", json.dumps(manifest, indent=2, allow_nan=False) + "\n")
+    for sources in rendered.values():
+        for filename, text in sources.items():
+            files.write_text(out_dir / filename, text)
+    files.write_json(out_dir / f"{name}.manifest.json", manifest)
     return manifest
 
 
-def manifest_for(plan, name: str, arith: str, style: str, files: dict, notes: list[str]) -> dict:
+def manifest_for(plan, name: str, arith: str, style: str, file_names: dict, notes: list[str]) -> dict:
     manifest = {
         "format": MANIFEST_FORMAT,
         "name": name,
         "function": f"{name}_estimate",
-        "files": files,
+        "files": file_names,
         "arith": arith,
         "style": style,
         "input_ctype": input_ctype(plan.input_ranges),

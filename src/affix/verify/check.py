@@ -7,13 +7,13 @@ bit pattern (so -0.0 and +0.0 differ, as they do on the wire).
 """
 from __future__ import annotations
 
-import json
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
+from affix import files
 from affix.arithmetic import IntegerEstimator
 from affix.emit.writer import MANIFEST_FORMAT
 from affix.errors import FileFormatError, VerificationError
@@ -69,10 +69,7 @@ def find_manifest(out_dir) -> tuple[Path, dict]:
     if len(found) != 1:
         what = "no" if not found else f"{len(found)}"
         raise FileFormatError(f"{what} *.manifest.json files (expected exactly one; run 'affix emit')", out_dir)
-    try:
-        manifest = json.loads(found[0].read_text())
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise FileFormatError(f"not readable as JSON ({exc})", found[0]) from None
+    manifest = files.read_json(found[0], "manifest")
     if not isinstance(manifest, dict) or manifest.get("format") != MANIFEST_FORMAT:
         raise FileFormatError(f'not an affix manifest (expected "format": "{MANIFEST_FORMAT}")', found[0])
     return found[0], manifest
