@@ -9,7 +9,6 @@ the whole file runs in a thread of the parent meanwhile.
 from __future__ import annotations
 
 import os
-from concurrent.futures import ProcessPoolExecutor
 
 from threadpoolctl import threadpool_limits
 
@@ -34,6 +33,8 @@ def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None
     ranges = partition(path, workers) if workers > 1 else [None]
     if len(ranges) == 1:
         return stream_moments(stream, len(columns), folds), stream.rows_dropped, stream.sha256
+    from concurrent.futures import ProcessPoolExecutor  # here: a serial pass need not load multiprocessing
+
     with ProcessPoolExecutor(len(ranges)) as pool:
         jobs = [pool.submit(_part_moments, path, columns, folds, chunk_rows, part) for part in ranges]
         digest = FileDigest(path)  # started after the workers, so no thread is running when they fork
