@@ -4,7 +4,7 @@ Parsing text is what a fit spends its time on, so a large CSV is cut into
 byte ranges of whole lines, one per CPU, and each worker process reduces its
 range to per-fold moments.  Folds follow the global row index, so the merged
 result is the same as one sequential pass (up to rounding).  The digest of
-the whole file runs in a thread of the parent meanwhile.
+the whole file runs in a thread of the parent while it prepares the workers.
 """
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ import os
 
 from threadpoolctl import threadpool_limits
 
-from affix.intake import partition, read_chunks
+from affix.intake import partition, read_chunks, splittable
 from affix.intake.digest import FileDigest
 from affix.intake.stream import check_invalid
 from affix.statistics import accumulate, merge_folds
@@ -30,14 +30,17 @@ def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None
     stream = read_chunks(path, columns, chunk_rows=chunk_rows, drop_invalid=drop_invalid)  # checks names first
     if workers is None:
         workers = usable_cpus() if os.path.getsize(path) >= PARALLEL_MIN_BYTES else 1
-    ranges = partition(path, workers) if workers > 1 else [None]
-    if len(ranges) == 1:
+    if workers == 1 or not splittable(path):
         return stream_moments(stream, len(columns), folds), stream.rows_dropped, stream.sha256
+    # The digest runs on another CPU while partition() loads pandas for the
+    # workers, rather than later against them; it must be done before they fork.
+    digest = FileDigest(path)
+    ranges = partition(path, workers)
+    sha256 = digest.hexdigest()
     from concurrent.futures import ProcessPoolExecutor  # here: a serial pass need not load multiprocessing
 
     with ProcessPoolExecutor(len(ranges)) as pool:
         jobs = [pool.submit(_part_moments, path, columns, folds, chunk_rows, part) for part in ranges]
-        digest = FileDigest(path)  # started after the workers, so no thread is running when they fork
         results = [job.result() for job in jobs]
     parts, dropped, first_invalid = results[0]
     for more, count, first in results[1:]:
@@ -45,7 +48,7 @@ def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None
         first_invalid = first_invalid or first
     if not drop_invalid:
         check_invalid(path, dropped, first_invalid)
-    return parts, dropped, digest.hexdigest()
+    return parts, dropped, sha256
 
 
 def _part_moments(path, columns, folds, chunk_rows, part):

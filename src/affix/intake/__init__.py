@@ -21,7 +21,7 @@ from affix.errors import DataError
 from affix.intake import array_format, csv_format
 from affix.intake.stream import ChunkStream
 
-__all__ = ["ChunkStream", "column_names", "from_array", "partition", "read_chunks"]
+__all__ = ["ChunkStream", "column_names", "from_array", "partition", "read_chunks", "splittable"]
 
 
 def column_names(path) -> list[str]:
@@ -61,12 +61,18 @@ def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: b
     return ChunkStream(path, columns, raw, drop_invalid, first_row=first_row, digest=False)
 
 
+def splittable(path) -> bool:
+    """Whether :func:`partition` can split the file: CSV only, as reading the
+    other formats costs too little to split."""
+    return _format(_existing(path)) is csv_format
+
+
 def partition(path, parts: int) -> list:
     """Ranges that split a CSV file's rows into up to ``parts`` pieces that can
     be read in parallel (``read_chunks(..., part=range)``); [None] (the whole
-    file) for other formats, whose reading costs too little to split."""
+    file) for other formats."""
     path = _existing(path)
-    if _format(path) is not csv_format:
+    if not splittable(path):
         return [None]
     import pandas  # noqa: F401 -- loaded once here, so worker processes forked next share it
 
