@@ -1,11 +1,13 @@
 /* Runs an affix-emitted estimator on a Cortex-M4 over vectors from the host.
  *
  * Reads vectors.bin (little-endian int32, N_IN per vector), evaluates each
- * with ESTIMATE(), writes outputs.bin (little-endian int32, N_OUT per
- * vector) and exits with 0 on success.  Build it with the names of the
+ * with ESTIMATE(), writes outputs.bin (little-endian 32-bit words, N_OUT per
+ * vector: the value of an integer output, the IEEE 754 bit pattern of a
+ * float one) and exits with 0 on success.  Build it with the names of the
  * emitted estimator, for example:
  *
- *   make NAME=wrist_ft DIR=../../demo_out/firmware IN_T=int16_t OUT_T=int16_t N_IN=6 N_OUT=6
+ *   make NAME=wrist_ft DIR=../../demo_out/firmware IN_T=int16_t OUT_T=int16_t N_IN=7 N_OUT=6
+ *   make NAME=wrist_f DIR=... IN_T=int16_t OUT_T=float N_IN=7 N_OUT=6 FLOAT=1
  */
 #include <stdint.h>
 
@@ -16,6 +18,22 @@
 #include STR(ESTIMATOR_HEADER)
 
 #define BLOCK 64
+
+#ifdef OUT_FLOAT
+/* Reading a union member other than the last one stored reinterprets the
+   bytes (C99 TC3, footnote 82): the float's bit pattern, exactly. */
+static int32_t word(float v)
+{
+    union { float f; int32_t bits; } u;
+    u.f = v;
+    return u.bits;
+}
+#else
+static int32_t word(OUT_T v)
+{
+    return (int32_t)v;
+}
+#endif
 
 int main(void)
 {
@@ -39,7 +57,7 @@ int main(void)
             }
             ESTIMATE(y, x);
             for (uint32_t i = 0; i < N_OUT; ++i) {
-                result[k * N_OUT + i] = (int32_t)x[i];
+                result[k * N_OUT + i] = word(x[i]);
             }
         }
         if (count > 0 && sh_write(out, result, count * sizeof(int32_t) * N_OUT) != 0) {

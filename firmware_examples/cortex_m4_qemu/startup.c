@@ -14,6 +14,12 @@ void sh_exit(int status) __attribute__((noreturn));
 
 void reset_handler(void)
 {
+#if defined(__ARM_FP)
+    /* Grant full access to the FPU (coprocessors 10 and 11 in CPACR) before
+       any floating-point instruction runs. */
+    *(volatile uint32_t *)0xE000ED88u |= 0xFu << 20;
+    __asm__ volatile("dsb\n\tisb" ::: "memory");
+#endif
     for (uint32_t *p = &__bss_start__; p < &__bss_end__; ++p) {
         *p = 0u;
     }
