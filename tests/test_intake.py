@@ -70,6 +70,20 @@ def test_sha256_of_the_whole_file_after_a_pass(tmp_path):
     assert stream.rows_read == 1000 and stream.rows_dropped == 0
 
 
+@pytest.mark.parametrize("size_in_windows", [0, 1, 3, 3.5])
+def test_sha256_over_many_memory_map_windows(tmp_path, monkeypatch, size_in_windows):
+    import mmap
+
+    from affix.intake import digest
+
+    # The smallest window mmap allows, so a small file spans several; the
+    # reference is hashlib over the whole file's bytes (Python standard library).
+    monkeypatch.setattr(digest, "_WINDOW", mmap.ALLOCATIONGRANULARITY)
+    path = tmp_path / "data.bin"
+    path.write_bytes(np.random.default_rng(5).bytes(int(size_in_windows * mmap.ALLOCATIONGRANULARITY)))
+    assert digest.FileDigest(path).hexdigest() == hashlib.sha256(path.read_bytes()).hexdigest()
+
+
 def test_invalid_rows_are_counted_and_named_or_dropped(tmp_path):
     path = tmp_path / "log.csv"
     path.write_text("a,b\n1,2\n3,nan\n5,6\n,8\n9,inf\n11,12\n")
