@@ -21,6 +21,8 @@ from dataclasses import dataclass
 import numpy as np
 
 ROUNDINGS = ("half-up", "floor")
+COEF_BITS = (8, 16, 32)  # the widths a plan may use, cheapest first
+ACC_BITS = (32, 64)
 OUTPUT_CTYPES = {
     "int16_t": (-(2**15), 2**15 - 1),
     "int32_t": (-(2**31), 2**31 - 1),

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 from affix import files
 from affix._version import __version__
-from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS, IntegerEstimator
+from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES, ROUNDINGS, IntegerEstimator
 from affix.errors import FileFormatError
 
 PLAN_FORMAT = "affix.plan/1"
@@ -163,7 +163,7 @@ class Plan:
             raise ValueError(f"output_ctype must be one of {', '.join(OUTPUT_CTYPES)}")
         if self.rounding not in ROUNDINGS:
             raise ValueError(f"rounding must be one of {', '.join(ROUNDINGS)}")
-        if self.coef_bits not in (8, 16, 32) or self.acc_bits not in (32, 64):
+        if self.coef_bits not in COEF_BITS or self.acc_bits not in ACC_BITS:
             raise ValueError("coef_bits must be 8, 16 or 32 and acc_bits 32 or 64")
         if len(self.output_lsb) != n or not all(math.isfinite(v) and v > 0 for v in self.output_lsb):
             raise ValueError("output_lsb must hold one positive finite value per output")

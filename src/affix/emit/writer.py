@@ -9,14 +9,11 @@ from __future__ import annotations
 from pathlib import Path
 
 from affix import files
+from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, STYLES
 from affix.emit.context import input_ctype
 from affix.emit.names import check_names
 from affix.errors import UsageError
 
-MANIFEST_FORMAT = "affix.manifest/1"
-LANGUAGES = ("c", "micropython")
-ARITHS = ("int", "float32")
-STYLES = ("table", "unrolled")
 
 
 def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str = "table") -> dict:

@@ -14,7 +14,8 @@ from affix.quantise.box import reach, resolve_per_name, resolve_ranges
 from affix.quantise.budget import DEFAULT_GROWTH_PERCENT, Budget
 from affix.quantise.measure import measure_box, measure_calibration
 from affix.quantise.moments import augmented_moments, uniform_box_moments
-from affix.quantise.search import ACC_BITS, COEF_BITS, choose, configurations
+from affix.arithmetic import ACC_BITS, COEF_BITS
+from affix.quantise.search import choose, configurations
 
 BOX_POINTS = 100_000
 _LARGEST_OUTPUT = 1e150  # its square, and sums of many, stay finite in float64

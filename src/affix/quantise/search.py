@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from itertools import product
 
-from affix.arithmetic import OUTPUT_CTYPES
+from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES
 from affix.errors import BudgetError, UsageError
 from affix.quantise.analysis import Accuracy, Problem, accuracy
 from affix.quantise.box import reach
@@ -21,8 +21,6 @@ from affix.quantise.design import Configuration, OutputDesign, design_output
 from affix.quantise.lsb import design_at_finest_lsb
 from affix.quantise.shift import Infeasible
 
-COEF_BITS = (8, 16, 32)
-ACC_BITS = (32, 64)
 
 
 @dataclass(frozen=True)

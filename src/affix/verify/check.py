@@ -15,7 +15,7 @@ import numpy as np
 
 from affix import files
 from affix.arithmetic import IntegerEstimator
-from affix.emit.writer import MANIFEST_FORMAT
+from affix.emit import MANIFEST_FORMAT
 from affix.errors import FileFormatError, VerificationError
 from affix.float32_arithmetic import Float32Estimator
 from affix.verify.c_build import COMPILE_FLAGS, load_c

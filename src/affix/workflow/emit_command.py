@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import sys
 
-from affix.emit.writer import ARITHS, LANGUAGES, STYLES, emit
+from affix.emit import ARITHS, LANGUAGES, STYLES
 from affix.plan import Plan
 
 
@@ -26,6 +26,8 @@ def register(sub):
 
 
 def run(args) -> int:
+    from affix.emit.writer import emit  # loaded by this command only: start-up stays short
+
     plan = Plan.load(args.plan)
     manifest = emit(plan, lang=args.lang, arith=args.arith, style=args.style, name=args.name, out_dir=args.out)
     for note in manifest["notes"]:

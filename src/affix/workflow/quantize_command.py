@@ -10,11 +10,9 @@ import argparse
 import json
 import math
 
-from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS
+from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES, ROUNDINGS
 from affix.errors import UsageError
 from affix.model import Model
-from affix.quantise import plan_fixed_point
-from affix.quantise.search import ACC_BITS, COEF_BITS
 
 
 EPILOG = """\
@@ -64,6 +62,8 @@ def register(sub):
 
 
 def run(args) -> int:
+    from affix.quantise import plan_fixed_point  # loaded by this command only: start-up stays short
+
     model = Model.load(args.model)
     ranges = _named(args.range, "--range", _range_value)
     if not ranges:

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 from affix.errors import UsageError, VerificationError
-from affix.verify.check import verify
 
 
 def register(sub):
@@ -27,6 +26,8 @@ def register(sub):
 def run(args) -> int:
     if args.vectors < 1:
         raise UsageError("must be at least 1", "--vectors")
+    from affix.verify.check import verify  # loaded by this command only: start-up stays short
+
     try:
         report = verify(args.dir, vectors=args.vectors, data=args.data, seed=args.seed)
     except VerificationError as exc:
