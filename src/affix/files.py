@@ -6,6 +6,7 @@ a JSON file can be unreadable into one FileFormatError naming the file.
 """
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import tempfile
@@ -40,3 +41,17 @@ def read_json(path, what: str):
         raise FileFormatError(f"no such {what} file", path) from None
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise FileFormatError(f"not readable as JSON ({exc})", path) from None
+
+
+def check_format(data, expected: str, what: str, path) -> dict:
+    """``data`` itself if it is a dict tagged ``"format": expected``, else a FileFormatError."""
+    if not isinstance(data, dict) or data.get("format") != expected:
+        raise FileFormatError(f'not an affix {what} file (expected "format": "{expected}")', path)
+    return data
+
+
+def content_sha256(data) -> str:
+    """Hash of a file's content as canonical JSON (sorted keys, no spaces), so
+    the same model or plan has the same hash however it was indented."""
+    text = json.dumps(data, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return hashlib.sha256(text.encode()).hexdigest()

@@ -10,8 +10,6 @@ exactly, as a quadratic form).
 """
 from __future__ import annotations
 
-import hashlib
-import json
 import math
 from dataclasses import dataclass
 
@@ -107,16 +105,14 @@ class Model:
     @property
     def sha256(self) -> str:
         """Content hash of the model file form; plans and emitted code cite it."""
-        text = json.dumps(self.to_dict(), sort_keys=True, separators=(",", ":"), allow_nan=False)
-        return hashlib.sha256(text.encode()).hexdigest()
+        return files.content_sha256(self.to_dict())
 
     def save(self, path) -> None:
         files.write_json(path, self.to_dict())
 
     @classmethod
     def from_dict(cls, data, path=None) -> "Model":
-        if not isinstance(data, dict) or data.get("format") != MODEL_FORMAT:
-            raise FileFormatError(f"not an affix model file (expected \"format\": \"{MODEL_FORMAT}\")", path)
+        files.check_format(data, MODEL_FORMAT, "model", path)
         missing = [k for k in ("inputs", "outputs", "gain", "offset") if k not in data]
         if missing:
             raise FileFormatError(f"model file lacks key(s): {', '.join(missing)}", path)

@@ -6,8 +6,6 @@ quantiser made of it, all per output in physical units.
 """
 from __future__ import annotations
 
-import hashlib
-import json
 import math
 from dataclasses import dataclass
 
@@ -99,16 +97,14 @@ class Plan:
 
     @property
     def sha256(self) -> str:
-        text = json.dumps(self.to_dict(), sort_keys=True, separators=(",", ":"), allow_nan=False)
-        return hashlib.sha256(text.encode()).hexdigest()
+        return files.content_sha256(self.to_dict())
 
     def save(self, path) -> None:
         files.write_json(path, self.to_dict())
 
     @classmethod
     def from_dict(cls, data, path=None) -> "Plan":
-        if not isinstance(data, dict) or data.get("format") != PLAN_FORMAT:
-            raise FileFormatError(f"not an affix plan file (expected \"format\": \"{PLAN_FORMAT}\")", path)
+        files.check_format(data, PLAN_FORMAT, "plan", path)
         required = (
             "inputs outputs input_ranges coefficients offsets shifts output_lsb output_ctype "
             "coef_bits acc_bits rounding gain offset model_sha256"

@@ -70,8 +70,7 @@ def find_manifest(out_dir) -> tuple[Path, dict]:
         what = "no" if not found else f"{len(found)}"
         raise FileFormatError(f"{what} *.manifest.json files (expected exactly one; run 'affix emit')", out_dir)
     manifest = files.read_json(found[0], "manifest")
-    if not isinstance(manifest, dict) or manifest.get("format") != MANIFEST_FORMAT:
-        raise FileFormatError(f'not an affix manifest (expected "format": "{MANIFEST_FORMAT}")', found[0])
+    files.check_format(manifest, MANIFEST_FORMAT, "manifest", found[0])
     return found[0], manifest
 
 
