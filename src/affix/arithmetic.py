@@ -58,9 +58,14 @@ def input_ctype(input_ranges) -> str | None:
     return None
 
 
+def input_reach(input_ranges) -> list[int]:
+    """max(|lo_j|, |hi_j|) per input: the largest magnitude a count can have in the box."""
+    return [max(abs(lo), abs(hi)) for lo, hi in input_ranges]
+
+
 def accumulator_bound(row, offset: int, shift: int, input_ranges, rounding: str) -> int:
     """|c| + sum_j |a_j| * max(|lo_j|, |hi_j|) + r: no |acc + r| over the box exceeds it."""
-    reach = (max(abs(lo), abs(hi)) for lo, hi in input_ranges)
+    reach = input_reach(input_ranges)
     return abs(offset) + sum(abs(a) * r for a, r in zip(row, reach)) + rounding_constant(shift, rounding)
 
 

@@ -19,6 +19,32 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from affix.arithmetic import input_reach
+
+UNIT_ROUNDOFF = 2.0**-24  # binary32, round to nearest
+FLOAT32_MAX = float(np.finfo(np.float32).max)
+
+
+def magnitude_bound(gain, offset, input_ranges) -> np.ndarray:
+    """|b_i| + sum_j |g_ij| * max(|lo_j|, |hi_j|) per output: no term or partial sum over the box exceeds it."""
+    return np.abs(np.asarray(offset, dtype=float)) + np.abs(np.asarray(gain, dtype=float)) @ np.array(
+        input_reach(input_ranges), dtype=float
+    )
+
+
+def error_bound(gain, offset, input_ranges) -> np.ndarray:
+    """Largest |float32 result - exact model| over the box, per output.
+
+    The float32 code is an inner product of n = M + 1 terms (the offset
+    times 1), each operand rounded once on the way in (constants to float,
+    inputs beyond 2**24 to float): gamma_{M+3} * (|b| + sum |g_j| |y_j|) with
+    gamma_k = k u / (1 - k u) -- the standard bound for recursive inner
+    products (Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed.,
+    §3.1, eq. 3.4; from memory).
+    """
+    k = len(input_ranges) + 3
+    return k * UNIT_ROUNDOFF / (1 - k * UNIT_ROUNDOFF) * magnitude_bound(gain, offset, input_ranges)
+
 
 @dataclass(frozen=True, eq=False)
 class Float32Estimator:

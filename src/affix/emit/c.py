@@ -6,8 +6,7 @@ import numpy as np
 from affix.emit.context import build_context
 from affix.emit.templates import render
 from affix.errors import UsageError
-
-_FLOAT32_MAX = float(np.finfo(np.float32).max)
+from affix.float32_arithmetic import FLOAT32_MAX, magnitude_bound
 
 
 def render_c(plan, name: str, *, arith: str = "int", style: str = "table") -> dict[str, str]:
@@ -23,7 +22,6 @@ def render_c(plan, name: str, *, arith: str = "int", style: str = "table") -> di
 
 def _check_float32_range(plan) -> None:
     """Refuse a model whose sums could overflow float32 over the box (inf would break the exact check)."""
-    reach = np.array([max(abs(lo), abs(hi)) for lo, hi in plan.input_ranges], dtype=float)
-    worst = np.abs(np.asarray(plan.offset)) + np.abs(np.asarray(plan.gain)) @ reach
-    if not np.all(worst < _FLOAT32_MAX / 2):  # margin for the rounding of each partial sum
+    worst = magnitude_bound(plan.gain, plan.offset, plan.input_ranges)
+    if not np.all(worst < FLOAT32_MAX / 2):  # margin for the rounding of each partial sum
         raise UsageError("the model's outputs over the input box exceed the float32 range", "--arith float32")

@@ -14,7 +14,7 @@ import numpy as np
 
 from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, input_ctype as smallest_input_ctype, output_range, rounding_constant
 from affix.errors import FileFormatError, UsageError
-from affix.float32_arithmetic import Float32Estimator
+from affix.float32_arithmetic import Float32Estimator, error_bound
 
 CAUTION = (
     "This estimator is only as valid as the calibration data's coverage of the operating range; "
@@ -64,6 +64,7 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         for j, (column, (lo, hi)) in enumerate(zip(plan.inputs, plan.input_ranges))
     ]
     outputs = []
+    float32_bounds = error_bound(plan.gain, plan.offset, plan.input_ranges)
     for i, column in enumerate(plan.outputs):
         row = plan.coefficients[i]
         shift = plan.shifts[i]
@@ -91,7 +92,7 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
                 "lsb": plan.output_lsb[i],
                 "acc_lsb": plan.output_lsb[i] / 2**shift,
                 "frac_bits": frac_bits,  # Qm.n where the lsb is 2**-n, else None
-                "float32_error_bound": _float32_error_bound(plan.gain[i], plan.offset[i], plan.input_ranges),
+                "float32_error_bound": float(float32_bounds[i]),
                 "gain": list(plan.gain[i]),
                 "float_offset": plan.offset[i],
                 **{key: _figure(plan, key, i) for key in _ACCURACY_FIELDS},
@@ -146,22 +147,6 @@ def check_vectors(plan, in_ctype: str, arith: str) -> list[dict]:
     else:
         expected = plan.integer_estimator().evaluate(y).tolist()
     return [{"inputs": row.tolist(), "expected": out} for row, out in zip(y, expected)]
-
-
-def _float32_error_bound(gain, offset, input_ranges) -> float:
-    """Largest |float32 result - exact model| over the box.
-
-    The float32 code is an inner product of n = M + 1 terms (the offset
-    times 1), each operand rounded once on the way in (constants to float,
-    inputs beyond 2**24 to float): gamma_{M+3} * (|b| + sum |g_j| |y_j|) with
-    gamma_k = k u / (1 - k u), u = 2**-24 -- the standard bound for recursive
-    inner products (Higham, Accuracy and Stability of Numerical Algorithms,
-    2nd ed., §3.1, eq. 3.4; from memory).
-    """
-    u = 2.0**-24
-    k = len(input_ranges) + 3
-    reach = sum(abs(g) * max(abs(lo), abs(hi)) for g, (lo, hi) in zip(gain, input_ranges))
-    return k * u / (1 - k * u) * (abs(offset) + reach)
 
 
 def _check_plan_text(plan) -> None:

@@ -11,7 +11,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from affix.arithmetic import INPUT_CTYPES, input_ctype
+from affix.arithmetic import INPUT_CTYPES, input_ctype, input_reach
 from affix.errors import UsageError
 
 
@@ -59,7 +59,7 @@ def resolve_per_name(names, values, option: str, *, kind: str) -> tuple[float | 
 
 def reach(box) -> np.ndarray:
     """max(|lo|, |hi|) per input: the largest magnitude a count can have."""
-    return np.array([max(abs(lo), abs(hi)) for lo, hi in box], dtype=float)
+    return np.array(input_reach(box), dtype=float)
 
 
 def corners(box, limit: int = 2**16) -> np.ndarray | None:
