@@ -63,6 +63,12 @@ def input_reach(input_ranges) -> list[int]:
     return [max(abs(lo), abs(hi)) for lo, hi in input_ranges]
 
 
+def box_bounds(input_ranges, dtype=np.int64) -> tuple[np.ndarray, np.ndarray]:
+    """The box as two arrays: lows and highs per input."""
+    ends = np.array(input_ranges, dtype=dtype).reshape(-1, 2)
+    return ends[:, 0], ends[:, 1]
+
+
 def accumulator_bound(row, offset: int, shift: int, input_ranges, rounding: str) -> int:
     """|c| + sum_j |a_j| * max(|lo_j|, |hi_j|) + r: no |acc + r| over the box exceeds it."""
     reach = input_reach(input_ranges)
@@ -181,8 +187,7 @@ class IntegerEstimator:
         return out[0] if single else out
 
     def _box_limits(self) -> tuple[np.ndarray, np.ndarray]:
-        lo = np.array([r[0] for r in self.input_ranges], dtype=np.int64)
-        hi = np.array([r[1] for r in self.input_ranges], dtype=np.int64)
+        lo, hi = box_bounds(self.input_ranges, np.int64)
         return lo, hi
 
     def _clamp_to_box(self, y: np.ndarray) -> np.ndarray:

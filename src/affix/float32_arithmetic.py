@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from affix.arithmetic import input_reach
+from affix.arithmetic import box_bounds, input_reach
 
 UNIT_ROUNDOFF = 2.0**-24  # binary32, round to nearest
 FLOAT32_MAX = float(np.finfo(np.float32).max)
@@ -65,8 +65,7 @@ class Float32Estimator:
     def evaluate(self, y) -> np.ndarray:
         """float32 outputs for integer rows y of shape (k, n_inputs)."""
         y = np.atleast_2d(np.asarray(y))
-        lo = np.array([r[0] for r in self.input_ranges], dtype=np.int64)
-        hi = np.array([r[1] for r in self.input_ranges], dtype=np.int64)
+        lo, hi = box_bounds(self.input_ranges, np.int64)
         yf = np.clip(y.astype(np.int64), lo, hi).astype(np.float32)
         out = np.empty((y.shape[0], len(self.offset)), dtype=np.float32)
         for i, (row, start) in enumerate(zip(self.gain, self.offset)):

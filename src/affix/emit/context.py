@@ -12,7 +12,8 @@ import re
 
 import numpy as np
 
-from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, input_ctype as smallest_input_ctype, output_range, rounding_constant
+from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, box_bounds, output_range, rounding_constant
+from affix.arithmetic import input_ctype as smallest_input_ctype
 from affix.errors import FileFormatError, UsageError
 from affix.float32_arithmetic import Float32Estimator, error_bound
 
@@ -132,8 +133,7 @@ def check_vectors(plan, in_ctype: str, arith: str) -> list[dict]:
     """A few known vectors for the emitted self-test: two opposite corners,
     the centre, a point beyond the box (to exercise clamping) and random
     points, with the outputs the reference computes for them."""
-    lo = np.array([r[0] for r in plan.input_ranges], dtype=np.int64)
-    hi = np.array([r[1] for r in plan.input_ranges], dtype=np.int64)
+    lo, hi = box_bounds(plan.input_ranges, np.int64)
     type_lo, type_hi = INPUT_CTYPES[in_ctype]
     rng = np.random.default_rng(int(plan.sha256[:8], 16))  # same plan, same vectors
     alternating = np.where(np.arange(len(lo)) % 2 == 0, lo, hi)

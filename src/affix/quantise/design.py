@@ -7,7 +7,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from affix.arithmetic import OUTPUT_CTYPES, accumulator_bound
+from affix.arithmetic import OUTPUT_CTYPES, accumulator_bound, box_bounds
 from affix.quantise.coefficients import mean_square, search_steps
 from affix.quantise.rounding_error import shift_error
 from affix.quantise.shift import Infeasible, choose_shift, fits, saturation
@@ -86,8 +86,7 @@ def design_output(gain, offset, lsb, config, box, moments, rounding, search=True
 
 def _check_range(g, b, lsb, box, output_ctype):
     """The float output's range over the box, in counts, must fit the type (the exact check follows)."""
-    lo = np.array([r[0] for r in box], dtype=float)
-    hi = np.array([r[1] for r in box], dtype=float)
+    lo, hi = box_bounds(box, float)
     low = b + float(np.minimum(g * lo, g * hi).sum())
     high = b + float(np.maximum(g * lo, g * hi).sum())
     type_lo, type_hi = OUTPUT_CTYPES[output_ctype]

@@ -12,7 +12,7 @@ import math
 
 import numpy as np
 
-from affix.arithmetic import OUTPUT_CTYPES
+from affix.arithmetic import OUTPUT_CTYPES, box_bounds
 from affix.quantise.design import design_output
 from affix.quantise.shift import Infeasible
 
@@ -22,8 +22,7 @@ _TRIES = 8  # the first candidate is a lower bound; quantisation can push a few 
 def finest_lsb(gain, offset, config, box) -> float:
     """A lower bound for the rule's lsb, as a power of two; 1 for an output that is constant zero."""
     gain = np.asarray(gain, dtype=float)
-    lo = np.array([r[0] for r in box], dtype=float)
-    hi = np.array([r[1] for r in box], dtype=float)
+    lo, hi = box_bounds(box, float)
     x_low = offset + float(np.minimum(gain * lo, gain * hi).sum())
     x_high = offset + float(np.maximum(gain * lo, gain * hi).sum())
     type_lo, type_hi = OUTPUT_CTYPES[config.output_ctype]

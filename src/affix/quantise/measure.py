@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from affix.arithmetic import box_bounds
 from affix.quantise.box import corners
 
 
@@ -32,8 +33,7 @@ class _Deviation:
 
 
 def measure_box(estimator, gain, offset, lsb, box, *, points, seed) -> dict:
-    lo = np.array([r[0] for r in box], dtype=np.int64)
-    hi = np.array([r[1] for r in box], dtype=np.int64)
+    lo, hi = box_bounds(box, np.int64)
     y = np.random.default_rng(seed).integers(lo, hi, size=(points, len(box)), endpoint=True)
     result = {"random": _deviation_on_counts(estimator, gain, offset, lsb, y)}
     box_corners = corners(box)
@@ -43,8 +43,7 @@ def measure_box(estimator, gain, offset, lsb, box, *, points, seed) -> dict:
 
 
 def measure_calibration(estimator, model, input_scale, lsb, box, chunks) -> dict:
-    lo = np.array([r[0] for r in box], dtype=float)
-    hi = np.array([r[1] for r in box], dtype=float)
+    lo, hi = box_bounds(box, float)
     scaled = np.any(input_scale != 1)
     tally, outside = _Deviation(model.n_outputs), 0
     for chunk in chunks:

@@ -7,6 +7,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from affix.arithmetic import box_bounds
+
 CALIBRATION = "calibration"
 UNIFORM_BOX = "uniform-box"
 
@@ -29,8 +31,7 @@ def augmented_moments(model, box, input_scale) -> tuple[np.ndarray, str]:
 
 def uniform_box_moments(box) -> np.ndarray:
     """Inputs independent and uniform over the integers of their ranges."""
-    lo = np.array([r[0] for r in box], dtype=float)
-    hi = np.array([r[1] for r in box], dtype=float)
+    lo, hi = box_bounds(box, float)
     width = hi - lo + 1
     return _augment((lo + hi) / 2, np.diag((width**2 - 1) / 12))  # discrete uniform variance
 

@@ -17,7 +17,7 @@ from typing import Callable
 
 import numpy as np
 
-from affix.arithmetic import INPUT_CTYPES
+from affix.arithmetic import INPUT_CTYPES, box_bounds
 
 MAX_FULL_CORNERS = 16
 CHUNK_ROWS = 1 << 18
@@ -49,7 +49,7 @@ class VectorSet:
 
 
 def vector_sets(input_ranges, input_ctype: str, *, n_random: int, seed: int = 0) -> dict[str, VectorSet]:
-    lo, hi = _bounds(input_ranges)
+    lo, hi = box_bounds(input_ranges)
     t_lo, t_hi = INPUT_CTYPES[input_ctype]
     rng = np.random.default_rng([seed, 0])
     beyond = rng.integers(t_lo, t_hi, size=(max(1, min(n_random, 2**16)), len(lo)), endpoint=True)
@@ -97,9 +97,3 @@ def calibration_vectors(path, inputs, input_ctype: str, input_lsb=None) -> Vecto
     chunks = [np.clip(np.rint(chunk / scale), t_lo, t_hi) for chunk in read_chunks(path, list(inputs))]
     rows = np.vstack(chunks) if chunks else np.empty((0, len(inputs)))
     return VectorSet.of("calibration", rows)
-
-
-def _bounds(input_ranges) -> tuple[np.ndarray, np.ndarray]:
-    lo = np.array([r[0] for r in input_ranges], dtype=np.int64)
-    hi = np.array([r[1] for r in input_ranges], dtype=np.int64)
-    return lo, hi
