@@ -1,6 +1,6 @@
 """Plans built directly from random integers that satisfy the box proof.
 
-The quantiser is a separate stage; the code generators are tested on plans
+The quantizer is a separate stage; the code generators are tested on plans
 made here so every corner of the plan space (signed and unsigned ranges,
 8/16/32-bit coefficients, 32/64-bit accumulators, tiny and huge gains) is
 reachable on purpose.
@@ -31,7 +31,7 @@ def random_plan(
     coef_bits: int = 16,
     acc_bits: int = 32,
     output_ctype: str = "int16_t",
-    rounding: str = "half-up",
+    rounding: str = "nearest",
     gain_scale: float = 1.0,
     fill: float = 0.9,
 ) -> Plan:

@@ -35,7 +35,7 @@ def oracle(est: IntegerEstimator, y) -> list[list[int]]:
         for row, c, s in zip(est.coefficients, est.offsets, est.shifts):
             acc = c + sum(a * v for a, v in zip(row, clamped))
             quotient = Fraction(acc, 2**s)
-            if est.rounding == "half-up":  # round to nearest, ties toward +infinity
+            if est.rounding == "nearest":  # round to nearest, ties toward +infinity
                 value = math.floor(quotient + Fraction(1, 2)) if s > 0 else acc
             else:
                 value = math.floor(quotient)
@@ -70,7 +70,7 @@ PATHS = {
 PATH_LIMITS = {"float64": (0, 2**53), "int64": (2**53, 2**63), "python-int": (2**63, 2**200)}
 
 
-@pytest.mark.parametrize("rounding", ["half-up", "floor"])
+@pytest.mark.parametrize("rounding", ["nearest", "floor"])
 @pytest.mark.parametrize("path", PATHS)
 def test_evaluate_matches_exact_oracle_on_every_path(path, rounding):
     rng = np.random.default_rng(hash((path, rounding)) % 2**32)
@@ -81,7 +81,7 @@ def test_evaluate_matches_exact_oracle_on_every_path(path, rounding):
     assert est.evaluate(y).tolist() == oracle(est, y)
 
 
-@pytest.mark.parametrize("rounding", ["half-up", "floor"])
+@pytest.mark.parametrize("rounding", ["nearest", "floor"])
 def test_negative_accumulators_and_ties(rounding):
     # acc runs over -9..9 with s = 1 and s = 2: every tie and both signs.
     # Half-up goes toward +infinity on a tie (-0.5 -> 0, -1.5 -> -1); floor
@@ -92,7 +92,7 @@ def test_negative_accumulators_and_ties(rounding):
     got = est.evaluate(y)
     assert got.tolist() == oracle(est, y)
     half = got[:, 1]
-    if rounding == "half-up":
+    if rounding == "nearest":
         assert half[y[:, 0] == -1][0] == 0 and half[y[:, 0] == -3][0] == -1
     else:
         assert half[y[:, 0] == -1][0] == -1 and half[y[:, 0] == -3][0] == -2
@@ -100,7 +100,7 @@ def test_negative_accumulators_and_ties(rounding):
 
 def test_output_clamps_to_type_limits_and_inputs_to_the_box():
     # INT16_MIN/INT16_MAX = -32768/32767: C99 (ISO/IEC 9899:1999) 7.18.2.1.
-    est = IntegerEstimator([[1000]], [0], [0], [(-100, 100)], "int16_t", "half-up", 32)
+    est = IntegerEstimator([[1000]], [0], [0], [(-100, 100)], "int16_t", "nearest", 32)
     out = est.evaluate(np.array([[-100], [32], [33], [100], [10**6], [-(10**6)]]))
     # 32 * 1000 = 32000 fits int16; 33 * 1000 saturates at 32767; inputs beyond the box clamp to +-100 first.
     assert out[:, 0].tolist() == [-32768, 32000, 32767, 32767, 32767, -32768]
@@ -134,7 +134,7 @@ def test_accumulator_bound_and_output_range_are_exact_on_corners():
     # A linear form over a box takes its extremes at corners (common
     # practice, linear programming); checked here by enumerating every corner.
     rng = np.random.default_rng(7)
-    for rounding in ("half-up", "floor"):
+    for rounding in ("nearest", "floor"):
         est = random_estimator(rng, n_inputs=4, n_outputs=3, coef_bits=16, input_kind="int16_t",
                                shift_range=(0, 20), rounding=rounding)
         corners = np.array(np.meshgrid(*est.input_ranges)).reshape(len(est.input_ranges), -1).T
@@ -161,7 +161,7 @@ def test_input_ctype_takes_one_type_for_the_whole_box():
 @settings(max_examples=300, deadline=None)
 @given(
     data=st.data(),
-    rounding=st.sampled_from(["half-up", "floor"]),
+    rounding=st.sampled_from(["nearest", "floor"]),
     n_inputs=st.integers(1, 4),
     output_ctype=st.sampled_from(sorted(OUTPUT_CTYPES)),
 )
@@ -176,3 +176,13 @@ def test_evaluate_matches_oracle_on_generated_estimators(data, rounding, n_input
                            ranges, output_ctype, rounding, 64)
     y = [[data.draw(st.integers(lo - 10, hi + 10)) for lo, hi in ranges] for _ in range(5)]
     assert est.evaluate(np.array(y, dtype=np.int64)).tolist() == oracle(est, y)
+
+
+def test_files_written_before_the_rounding_rename_read_as_nearest():
+    # "half-up" was this contract's old name for ties toward +infinity.
+    old = {"coefficients": [[3]], "offsets": [1], "shifts": [2], "input_ranges": [[-8, 8]],
+           "output_ctype": "int16_t", "rounding": "half-up", "acc_bits": 32}
+    est = IntegerEstimator.from_mapping(old)
+    assert est.rounding == "nearest"
+    # (3*2 + 1 + 2) >> 2 = 2: the rounding constant 2**(s-1) of ties toward +infinity is applied.
+    assert est.evaluate(np.array([2])).tolist() == [2]

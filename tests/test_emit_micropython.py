@@ -253,7 +253,7 @@ def test_header_states_the_contract(tmp_path):
         assert f"{name}: lsb 0.00390625 = 2^-8 (Q7.8); s = {shift}" in head
     assert "rms: float fit 0.125, integer deviation 0.001, total 0.126; worst-case deviation 0.0039" in head
     assert "rms: float fit 0.25, integer deviation 0.002, total 0.251; worst-case deviation 0.0078" in head
-    assert "round half up" in head and "int16_t, -32768 .. 32767" in head
+    assert "round to nearest, ties toward +infinity" in head and "int16_t, -32768 .. 32767" in head
     names = module_constants(text)
     assert ast.literal_eval(names["INPUTS"]) == plan.inputs
     assert ast.literal_eval(names["OUTPUTS"]) == plan.outputs

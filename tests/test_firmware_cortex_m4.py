@@ -45,7 +45,7 @@ def _plan(acc_bits: int, seed: int) -> Plan:
         output_ctype="int32_t",
         coef_bits=coef_bits,
         acc_bits=acc_bits,
-        rounding="half-up",
+        rounding="nearest",
         gain=tuple(tuple(float(a) for a in row) for row in coefficients.tolist()),
         offset=(0.0, 0.0, 0.0),
         model_sha256="0" * 64,

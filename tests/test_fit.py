@@ -261,7 +261,7 @@ def test_fitted_sklearn_models_are_adopted_with_their_feature_names():
     np.testing.assert_allclose(adopted.predict(frame.to_numpy())[:, 0], single.predict(frame.to_numpy()), rtol=1e-12)
 
 
-def test_model_carries_the_input_moments_the_quantiser_needs():
+def test_model_carries_the_input_moments_the_quantizer_needs():
     rng = np.random.default_rng(9)
     y = rng.normal(loc=5.0, size=(300, 2))
     x = y.sum(axis=1, keepdims=True)

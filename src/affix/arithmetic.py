@@ -6,11 +6,11 @@ For each output i, with inputs y_j first clamped to their declared box
     acc_i = c_i + sum_j a_ij * y_j                 (signed, acc_bits wide)
     out_i = clamp(floor((acc_i + r_i) / 2**s_i))   to the output type's limits
 
-where r_i = 2**(s_i - 1) for rounding "half-up" (round to nearest, ties
+where r_i = 2**(s_i - 1) for rounding "nearest" (round to nearest, ties
 toward +infinity; r_i = 0 when s_i = 0) and r_i = 0 for "floor".  The
 physical value is out_i * output_lsb_i.
 
-The quantiser proves |acc_i + r_i| stays inside the accumulator over the whole
+The quantizer proves |acc_i + r_i| stays inside the accumulator over the whole
 box; the evaluator here is exact whatever the numbers, so it is the reference
 that generated code is checked against bit for bit.
 """
@@ -20,7 +20,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-ROUNDINGS = ("half-up", "floor")
+ROUNDINGS = ("nearest", "floor")
+# What each rounding does, in the words --help, the emitted header and the manifest use.
+ROUNDING_RULES = {
+    "nearest": "round to nearest, ties toward +infinity",
+    "floor": "round toward -infinity",
+}
+# Plan and manifest files written before the rename still say "half-up"
+# (which decimal libraries use for ties away from zero; here it meant ties up).
+_ROUNDING_ALIASES = {"half-up": "nearest"}
 COEF_BITS = (8, 16, 32)  # the widths a plan may use, cheapest first
 ACC_BITS = (32, 64)
 OUTPUT_CTYPES = {
@@ -38,8 +46,13 @@ INPUT_CTYPES = {  # in the order the emitter prefers them: smallest first
 _FLOAT64_EXACT = 2**53  # every integer below this is exact in a double
 
 
+def rounding_name(value) -> str:
+    """The current name of a rounding read from a file, old spellings included."""
+    return _ROUNDING_ALIASES.get(value, value)
+
+
 def rounding_constant(shift: int, rounding: str) -> int:
-    if rounding == "half-up":
+    if rounding == "nearest":
         return 1 << (shift - 1) if shift > 0 else 0
     if rounding == "floor":
         return 0
@@ -96,7 +109,7 @@ class IntegerEstimator:
     shifts: tuple[int, ...]
     input_ranges: tuple[tuple[int, int], ...]  # (lo_j, hi_j), inclusive
     output_ctype: str
-    rounding: str = "half-up"
+    rounding: str = "nearest"
     acc_bits: int = 32
 
     def __post_init__(self):
@@ -123,7 +136,7 @@ class IntegerEstimator:
             shifts=data["shifts"],
             input_ranges=data["input_ranges"],
             output_ctype=data["output_ctype"],
-            rounding=data["rounding"],
+            rounding=rounding_name(data["rounding"]),
             acc_bits=data["acc_bits"],
         )
 

@@ -1,11 +1,11 @@
-"""The fitted model: the plain data object the fit stage hands to the quantiser.
+"""The fitted model: the plain data object the fit stage hands to the quantizer.
 
 x_hat = gain @ y + offset, with ``gain`` of shape (outputs, inputs).
 
 Besides gain and offset it carries what later stages need to judge the
 estimator without the raw data: the error covariance and cross-validated RMS
 (its own accuracy) and the first and second moments of the calibration inputs
-(so the quantiser can evaluate the mean-square effect of coefficient rounding
+(so the quantizer can evaluate the mean-square effect of coefficient rounding
 exactly, as a quadratic form).
 """
 from __future__ import annotations

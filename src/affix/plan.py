@@ -1,8 +1,8 @@
-"""The fixed-point plan: the plain data object the quantiser hands to the emitter.
+"""The fixed-point plan: the plain data object the quantizer hands to the emitter.
 
 It holds the integer estimator (see :mod:`affix.arithmetic` for the exact
 arithmetic), the float model it approximates, and the accuracy analysis the
-quantiser made of it, all per output in physical units.
+quantizer made of it, all per output in physical units.
 """
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ from dataclasses import dataclass
 
 from affix import files
 from affix._version import __version__
-from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES, ROUNDINGS, IntegerEstimator
+from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES, ROUNDINGS, IntegerEstimator, rounding_name
 from affix.errors import FileFormatError
 
 PLAN_FORMAT = "affix.plan/1"
@@ -43,7 +43,7 @@ class Plan:
     predicted_total_rms: tuple[float, ...] | None = None
     worst_case_deviation: tuple[float, ...] | None = None
     # RMS of each independent part of the deviation, adding in quadrature:
-    # {"coefficients", "output_rounding", "input_quantisation"}, plus
+    # {"coefficients", "output_rounding", "input_quantization"}, plus
     # "coefficients_plain_rounding" (what rounding each coefficient alone would give).
     deviation_parts: dict | None = None
     accumulator_bound: tuple[int, ...] | None = None
@@ -124,7 +124,7 @@ class Plan:
                 output_ctype=data["output_ctype"],
                 coef_bits=_int(data["coef_bits"]),
                 acc_bits=_int(data["acc_bits"]),
-                rounding=data["rounding"],
+                rounding=rounding_name(data["rounding"]),
                 gain=tuple(tuple(float(v) for v in row) for row in data["gain"]),
                 offset=tuple(float(v) for v in data["offset"]),
                 model_sha256=str(data["model_sha256"]),

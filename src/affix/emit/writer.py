@@ -9,6 +9,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from affix import files
+from affix.arithmetic import ROUNDING_RULES
 from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, STYLES
 from affix.emit.context import input_ctype
 from affix.emit.names import check_names
@@ -76,6 +77,7 @@ def manifest_for(plan, name: str, arith: str, style: str, file_names: dict, note
         "acc_bits": plan.acc_bits,
         "coef_bits": plan.coef_bits,
         "rounding": plan.rounding,
+        "rounding_rule": ROUNDING_RULES[plan.rounding],
         "plan_sha256": plan.sha256,
         "model_sha256": plan.model_sha256,
         "tool_version": plan.tool_version,

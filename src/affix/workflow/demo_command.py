@@ -21,7 +21,7 @@ def register(sub):
     parser = sub.add_parser(
         "demo",
         help="run the whole job on a generated calibration of a six-bridge wrist force/torque sensor",
-        description="Generate the demo's calibration log in OUTDIR, then fit, quantise, emit C and "
+        description="Generate the demo's calibration log in OUTDIR, then fit, quantize, emit C and "
         "MicroPython, and verify them, printing each command as it runs.",
     )
     parser.add_argument("outdir", help="folder for the demo's files (created if missing)")

@@ -1,6 +1,6 @@
 """affix quantize: a model file and an input box in, a proven fixed-point plan out.
 
-A thin layer over :func:`affix.quantise.plan_fixed_point`: it parses the
+A thin layer over :func:`affix.quantize.plan_fixed_point`: it parses the
 options into plain values, prints the accuracy table (or a JSON summary)
 and writes the plan only after every check has passed.
 """
@@ -10,7 +10,7 @@ import argparse
 import json
 import math
 
-from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES, ROUNDINGS
+from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES, ROUNDING_RULES, ROUNDINGS
 from affix.errors import UsageError
 from affix.model import Model
 
@@ -50,7 +50,9 @@ def register(sub):
                         help="largest worst-case deviation allowed per output, physical units")
     parser.add_argument("--budget-rms", metavar="P%",
                         help="largest growth of the total RMS over the float estimator, in percent")
-    parser.add_argument("--rounding", choices=ROUNDINGS, default="half-up", help="output rounding (default half-up)")
+    parser.add_argument("--rounding", choices=ROUNDINGS, default="nearest",
+                        help="output rounding, " + "; ".join(f"{k}: {v}" for k, v in ROUNDING_RULES.items())
+                        + " (default nearest)")
     parser.add_argument("--plain-coefficients", action="store_true",
                         help="round each coefficient on its own instead of the error-feedback search")
     parser.add_argument("--data", metavar="CALIB_FILE", help="calibration rows to measure the integer reference on")
@@ -62,7 +64,7 @@ def register(sub):
 
 
 def run(args) -> int:
-    from affix.quantise import plan_fixed_point  # loaded by this command only: start-up stays short
+    from affix.quantize import plan_fixed_point  # loaded by this command only: start-up stays short
 
     model = Model.load(args.model)
     ranges = _named(args.range, "--range", _range_value)

@@ -9,13 +9,13 @@ import numpy as np
 from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS
 from affix.errors import UsageError
 from affix.plan import Plan
-from affix.quantise.analysis import Problem
-from affix.quantise.box import reach, resolve_per_name, resolve_ranges
-from affix.quantise.budget import DEFAULT_GROWTH_PERCENT, Budget
-from affix.quantise.measure import measure_box, measure_calibration
-from affix.quantise.moments import augmented_moments, uniform_box_moments
+from affix.quantize.analysis import Problem
+from affix.quantize.box import reach, resolve_per_name, resolve_ranges
+from affix.quantize.budget import DEFAULT_GROWTH_PERCENT, Budget
+from affix.quantize.measure import measure_box, measure_calibration
+from affix.quantize.moments import augmented_moments, uniform_box_moments
 from affix.arithmetic import ACC_BITS, COEF_BITS
-from affix.quantise.search import choose, configurations
+from affix.quantize.search import choose, configurations
 
 BOX_POINTS = 100_000
 _LARGEST_OUTPUT = 1e150  # its square, and sums of many, stay finite in float64
@@ -32,13 +32,13 @@ def plan_fixed_point(
     input_lsb=None,
     budget=None,
     budget_rms=None,
-    rounding="half-up",
+    rounding="nearest",
     calibration=None,
     search=True,
     box_points=BOX_POINTS,
     seed=0,
 ) -> Plan:
-    """Quantise ``model`` for integer inputs in ``input_ranges``.
+    """Quantize ``model`` for integer inputs in ``input_ranges``.
 
     input_ranges: one (lo, hi) for every input, a pair per input, or {name: (lo, hi)}
         (key None for the rest); counts, as the microcontroller reads them.
@@ -137,7 +137,7 @@ def _plan(model, problem, choice, budget, input_lsb) -> Plan:
             "coefficients": list(figures.coefficients),
             "coefficients_plain_rounding": list(figures.plain_coefficients),
             "output_rounding": list(figures.output_rounding),
-            "input_quantisation": list(figures.input_quantisation),
+            "input_quantization": list(figures.input_quantization),
         },
         accumulator_bound=tuple(d.accumulator_bound for d in designs),
         accumulator_headroom_bits=tuple(

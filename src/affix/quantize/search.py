@@ -14,12 +14,12 @@ from itertools import product
 
 from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES
 from affix.errors import BudgetError, UsageError
-from affix.quantise.analysis import Accuracy, Problem, accuracy
-from affix.quantise.box import reach
-from affix.quantise.budget import WORST_CASE, Budget
-from affix.quantise.design import Configuration, OutputDesign, design_output
-from affix.quantise.lsb import design_at_finest_lsb
-from affix.quantise.shift import Infeasible
+from affix.quantize.analysis import Accuracy, Problem, accuracy
+from affix.quantize.box import reach
+from affix.quantize.budget import WORST_CASE, Budget
+from affix.quantize.design import Configuration, OutputDesign, design_output
+from affix.quantize.lsb import design_at_finest_lsb
+from affix.quantize.shift import Infeasible
 
 
 

@@ -8,9 +8,9 @@ from fractions import Fraction
 import numpy as np
 
 from affix.arithmetic import OUTPUT_CTYPES, accumulator_bound, box_bounds
-from affix.quantise.coefficients import mean_square, search_steps
-from affix.quantise.rounding_error import shift_error
-from affix.quantise.shift import Infeasible, choose_shift, fits, saturation
+from affix.quantize.coefficients import mean_square, search_steps
+from affix.quantize.rounding_error import shift_error
+from affix.quantize.shift import Infeasible, choose_shift, fits, saturation
 
 
 @dataclass(frozen=True)
@@ -44,7 +44,7 @@ class OutputDesign:
     worst_case: float = 0.0  # over the box, integer against float on the same counts
 
     def coefficient_rms(self, moments, *, plain=False) -> float:
-        """RMS of the coefficient-quantisation deviation, physical units, under these moments."""
+        """RMS of the coefficient-quantization deviation, physical units, under these moments."""
         error = self.plain_error if plain else self.error
         return self.lsb / 2.0**self.shift * math.sqrt(max(mean_square(error, moments), 0.0))
 

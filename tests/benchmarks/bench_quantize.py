@@ -1,11 +1,11 @@
-"""Benchmark: quantise plus budget for a 16-input, 16-output model with 10**6 calibration rows.
+"""Benchmark: quantize plus budget for a 16-input, 16-output model with 10**6 calibration rows.
 
 Target: under 2 s on a 2-core machine, configuration search and coefficient
 search included.  Side by side in the same run: the same plan without the
 calibration measurement and without the coefficient search, so the share of
 each part shows as a ratio.
 
-    .venv/bin/python tests/benchmarks/bench_quantise.py
+    .venv/bin/python tests/benchmarks/bench_quantize.py
 """
 from __future__ import annotations
 
@@ -14,7 +14,7 @@ import time
 import numpy as np
 
 from affix.model import Model
-from affix.quantise import plan_fixed_point
+from affix.quantize import plan_fixed_point
 
 N_INPUTS = N_OUTPUTS = 16
 ROWS = 10**6

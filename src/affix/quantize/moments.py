@@ -1,6 +1,6 @@
 """Second moments of the augmented input z = (1, y_1 .. y_m), in counts.
 
-The coefficient-quantisation error of one output is delta . z, so its mean
+The coefficient-quantization error of one output is delta . z, so its mean
 square is the quadratic form delta' E[z z'] delta: exact given these moments.
 """
 from __future__ import annotations

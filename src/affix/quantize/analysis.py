@@ -1,4 +1,4 @@
-"""The quantisation problem as plain data, and the accuracy figures of a design of it.
+"""The quantization problem as plain data, and the accuracy figures of a design of it.
 
 All figures are per output in physical output units.  The deviation of the
 integer estimator from the float one is split into independent parts that
@@ -8,7 +8,7 @@ add in quadrature:
 - output rounding: the variance of the shift's error, (1 - 4**-s) lsb**2 / 12
   (lsb**2 / 12 of Widrow & Kollar, Quantization Noise, 2008, for a discrete
   grid of 2**s steps); its mean is cancelled in the offset;
-- input quantisation, where an input is physical with an lsb q_j: an ADC that
+- input quantization, where an input is physical with an lsb q_j: an ADC that
   rounds to nearest errs uniformly by +-q_j / 2, adding sum_j gain_j**2 / 12
   per count (gain per count).
 
@@ -37,7 +37,7 @@ class Problem:
     rounding: str
     search: bool
     float_rms: np.ndarray | None
-    input_rms: np.ndarray  # input-quantisation RMS per output (0 where inputs are counts)
+    input_rms: np.ndarray  # input-quantization RMS per output (0 where inputs are counts)
     input_worst: np.ndarray  # its worst case, +-q/2 on every physical input
 
 
@@ -46,7 +46,7 @@ class Accuracy:
     coefficients: tuple[float, ...]
     plain_coefficients: tuple[float, ...]
     output_rounding: tuple[float, ...]
-    input_quantisation: tuple[float, ...]
+    input_quantization: tuple[float, ...]
     deviation: tuple[float, ...]  # predicted RMS deviation, integer from float
     total: tuple[float, ...] | None  # predicted RMS of the integer estimator
     worst_case: tuple[float, ...]
@@ -64,7 +64,7 @@ def accuracy(problem: Problem, designs) -> Accuracy:
         coefficients=coefficients,
         plain_coefficients=tuple(d.coefficient_rms(problem.moments, plain=True) for d in designs),
         output_rounding=rounding,
-        input_quantisation=inputs,
+        input_quantization=inputs,
         deviation=deviation,
         total=total,
         worst_case=tuple(d.worst_case + float(w) for d, w in zip(designs, problem.input_worst)),

@@ -13,10 +13,10 @@ import math
 import numpy as np
 
 from affix.arithmetic import OUTPUT_CTYPES, box_bounds
-from affix.quantise.design import design_output
-from affix.quantise.shift import Infeasible
+from affix.quantize.design import design_output
+from affix.quantize.shift import Infeasible
 
-_TRIES = 8  # the first candidate is a lower bound; quantisation can push a few steps coarser
+_TRIES = 8  # the first candidate is a lower bound; quantization can push a few steps coarser
 
 
 def finest_lsb(gain, offset, config, box) -> float:

@@ -3,7 +3,7 @@
 Two data sets: random points of the box (integer against the plan's float
 estimator on the same counts; the prediction for them uses uniform moments),
 and, when given, the calibration rows (integer on the rows' counts against
-the model on the rows as they are, so input quantisation is included).
+the model on the rows as they are, so input quantization is included).
 Calibration rows outside the box are counted and left out: there the
 integer estimator clamps and the float one extrapolates.
 """
@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from affix.arithmetic import box_bounds
-from affix.quantise.box import corners
+from affix.quantize.box import corners
 
 
 class _Deviation:

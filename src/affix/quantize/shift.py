@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from affix.arithmetic import OUTPUT_CTYPES, accumulator_bound, output_range
-from affix.quantise.rounding_error import round_half_up, shift_error
+from affix.quantize.rounding_error import round_nearest_ties_up, shift_error
 
 
 class Infeasible(Exception):
@@ -26,14 +26,14 @@ class Targets:
     """Plainly rounded integers at one shift, (offset, coefficients...) in z order."""
 
     shift: int
-    plain: tuple[int, ...]  # each real target rounded half-up on its own
+    plain: tuple[int, ...]  # each real target rounded to nearest (ties up) on its own
     plain_error: np.ndarray  # plain less the real targets, accumulator counts
 
 
 def targets_at(g: np.ndarray, b: float, shift: int, rounding: str) -> Targets:
     scale = 2.0**shift
     values = np.concatenate(([b * scale - shift_error(shift, rounding).mean * scale], g * scale))
-    rounded = round_half_up(values)
+    rounded = round_nearest_ties_up(values)
     # rounded - values is exact: the two are within 1/2 of each other, so
     # within a factor of two wherever they are not both below 1 (Sterbenz).
     return Targets(shift, tuple(int(v) for v in rounded), rounded - values)

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from affix.quantise.rounding_error import round_half_up
+from affix.quantize.rounding_error import round_nearest_ties_up
 
 _RIDGE = 1e-9  # keeps the factor of a singular M (a constant input) finite
 
@@ -41,7 +41,7 @@ def _nearest_plane(plain_error, moments, low, high) -> np.ndarray:
     for i in range(n - 1, -1, -1):
         later = scale[i + 1 :] * (plain_error[i + 1 :] + steps[i + 1 :])
         wanted = -(upper[i, i + 1 :] @ later) / upper[i, i] / scale[i]
-        steps[i] = np.clip(round_half_up(wanted - plain_error[i]), low[i], high[i])
+        steps[i] = np.clip(round_nearest_ties_up(wanted - plain_error[i]), low[i], high[i])
     return steps
 
 

@@ -1,5 +1,5 @@
-"""The quantiser against outside references: fxpmath, exact rational arithmetic,
-the uniform-noise model of quantisation, and brute force over the configurations."""
+"""The quantizer against outside references: fxpmath, exact rational arithmetic,
+the uniform-noise model of quantization, and brute force over the configurations."""
 from __future__ import annotations
 
 import math
@@ -15,8 +15,8 @@ from hypothesis import strategies as st
 from affix.arithmetic import OUTPUT_CTYPES, IntegerEstimator, rounding_constant
 from affix.errors import BudgetError, UsageError
 from affix.model import Model
-from affix.quantise import plan_fixed_point
-from affix.quantise.rounding_error import round_half_up
+from affix.quantize import plan_fixed_point
+from affix.quantize.rounding_error import round_nearest_ties_up
 
 
 def calibration_rows(rng, box, k):
@@ -73,7 +73,7 @@ def unclamped(plan, y):
 # --- point 7: output rounding noise ------------------------------------------
 
 
-@pytest.mark.parametrize("rounding", ["half-up", "floor"])
+@pytest.mark.parametrize("rounding", ["nearest", "floor"])
 def test_rounding_noise_variance_is_lsb_squared_over_twelve(rounding):
     # Widrow & Kollar, Quantization Noise (2008): rounding values spread
     # uniformly over many steps adds noise of variance lsb**2 / 12.  Here the
@@ -84,8 +84,8 @@ def test_rounding_noise_variance_is_lsb_squared_over_twelve(rounding):
     acc = rng.integers(-(2**30), 2**30, size=(10**6, 1))
     error = (estimator.evaluate(acc)[:, 0] - acc[:, 0] / 2.0**shift) * lsb
     assert error.var() == pytest.approx(lsb**2 / 12, rel=0.02)
-    # half-up errs within [-lsb/2, lsb/2]; floor within (-lsb, 0] (the definitions of the two roundings)
-    if rounding == "half-up":
+    # nearest errs within [-lsb/2, lsb/2]; floor within (-lsb, 0] (the definitions of the two roundings)
+    if rounding == "nearest":
         assert -lsb / 2 <= error.min() and error.max() <= lsb / 2
     else:
         assert -lsb < error.min() and error.max() <= 0
@@ -103,17 +103,17 @@ def test_planned_rounding_part_is_the_uniform_noise_figure():
 # --- point 7: agreement with fxpmath ------------------------------------------
 
 
-def test_half_up_rounding_matches_fxpmath_nearest_posinf_on_ties():
+def test_nearest_rounding_matches_fxpmath_nearest_posinf_on_ties():
     # fxpmath's rounding="nearest_posinf" rounds to nearest, ties toward +inf
-    # (fxpmath/objects.py, Fxp._round), the rounding the contract calls half-up.
+    # (fxpmath/objects.py, Fxp._round), the rounding the contract calls nearest (ties toward +infinity).
     values = np.array([-2.5, -1.5, -0.5, 0.5, 1.5, 2.5, 0.49999999999999994, -0.49999999999999994, 3.2, -3.7])
     reference = Fxp(values, signed=True, n_word=16, n_frac=0, rounding="nearest_posinf").val
-    assert round_half_up(values).astype(np.int64).tolist() == np.asarray(reference).astype(np.int64).tolist()
+    assert round_nearest_ties_up(values).astype(np.int64).tolist() == np.asarray(reference).astype(np.int64).tolist()
 
 
 @pytest.mark.parametrize("coef_bits", [8, 16, 32])
 def test_plain_coefficients_agree_with_fxpmath_integer_for_integer(coef_bits):
-    # fxpmath (PyPI) quantises a real to a signed fixed-point word of n_word
+    # fxpmath (PyPI) quantizes a real to a signed fixed-point word of n_word
     # bits with n_frac fraction bits; its raw integer .val must equal ours at
     # the same word length (coef_bits), fraction length (the shift) and rounding.
     rng = np.random.default_rng(coef_bits)
@@ -129,7 +129,7 @@ def test_plain_coefficients_agree_with_fxpmath_integer_for_integer(coef_bits):
 # --- point 7: worst-case bound ------------------------------------------------
 
 
-@pytest.mark.parametrize("rounding", ["half-up", "floor"])
+@pytest.mark.parametrize("rounding", ["nearest", "floor"])
 @pytest.mark.parametrize("coef_bits", [8, 16])
 def test_worst_case_bound_holds_on_every_corner_and_is_tight(rounding, coef_bits):
     # Exact rational arithmetic (Python fractions) is the reference: the
@@ -186,12 +186,12 @@ def test_coefficient_part_is_the_exact_quadratic_form_of_the_data():
     y = rows.astype(np.int64)
     for i, (row, c, s, lsb) in enumerate(zip(plan.coefficients, plan.offsets, plan.shifts, plan.output_lsb)):
         acc = c + y @ np.array(row)
-        mean_error = 0.5 / 2**s if s else 0.0  # half-up's mean error, in output counts
+        mean_error = 0.5 / 2**s if s else 0.0  # nearest's mean error, in output counts
         pre_shift = acc * (lsb / 2**s) - model.predict(rows)[:, i] + mean_error * lsb
         assert plan.deviation_parts["coefficients"][i] == pytest.approx(np.sqrt(np.mean(pre_shift**2)), rel=1e-6)
 
 
-def test_input_quantisation_of_physical_inputs_is_predicted_and_measured():
+def test_input_quantization_of_physical_inputs_is_predicted_and_measured():
     # An ADC rounding to nearest errs uniformly by +-q/2 (Widrow & Kollar,
     # 2008): variance q**2/12 per input, through the gain.  Inputs here are
     # volts with 1 mV counts; the rows are continuous volts.
@@ -205,7 +205,7 @@ def test_input_quantisation_of_physical_inputs_is_predicted_and_measured():
     plan = plan_fixed_point(model, (0, 4095), input_lsb=q, coef_bits=32, acc_bits=64, output_ctype="int32_t",
                             calibration=[volts])
     expected = math.sqrt(sum((g * q) ** 2 for g in model.gain[0]) / 12)
-    assert plan.deviation_parts["input_quantisation"][0] == pytest.approx(expected, rel=1e-12)
+    assert plan.deviation_parts["input_quantization"][0] == pytest.approx(expected, rel=1e-12)
     assert plan.input_lsb == (q, q, q)
     assert list(plan.gain[0]) == pytest.approx([g * q for g in model.gain[0]])
     measured = plan.measured["calibration"]["rms_deviation"][0]
@@ -219,7 +219,7 @@ def test_input_quantisation_of_physical_inputs_is_predicted_and_measured():
 def test_error_feedback_coefficients_never_worse_than_plain_rounding():
     # Compared on the data themselves (mean square of the pre-shift deviation
     # over the calibration rows, whose moments the model carries), not on the
-    # quantiser's own figure.  Bounds: Plan.validate re-proves coefficient
+    # quantizer's own figure.  Bounds: Plan.validate re-proves coefficient
     # width and accumulator bound; saturation is checked on the corners.
     rng = np.random.default_rng(2024)
     better = 0
@@ -353,15 +353,15 @@ def test_model_without_moments_uses_uniform_box_moments_and_says_so():
 def test_shift_is_the_largest_that_passes_the_box_proof():
     # Issue point 1: one more shift must break a coefficient's width or the
     # accumulator bound |c| + sum |a| max|y| + 2**(s-1) (offset target less
-    # half-up's mean error of half an accumulator count, as the plan documents).
+    # nearest's mean error of half an accumulator count, as the plan documents).
     rng = np.random.default_rng(12)
     box = [(0, 4095)] * 4
     model = model_for(rng, calibration_rows(rng, box, 500), 3)
     plan = plan_fixed_point(model, box, coef_bits=16, acc_bits=32, search=False, box_points=100)
     plan.validate()
     for gains, b, lsb, s in zip(plan.gain, plan.offset, plan.output_lsb, plan.shifts):
-        finer = [int(round_half_up(g / lsb * 2.0 ** (s + 1))) for g in gains]
-        c = int(round_half_up(b / lsb * 2.0 ** (s + 1) - 0.5))
+        finer = [int(round_nearest_ties_up(g / lsb * 2.0 ** (s + 1))) for g in gains]
+        c = int(round_nearest_ties_up(b / lsb * 2.0 ** (s + 1) - 0.5))
         fits_coef = all(-(2**15) <= a < 2**15 for a in finer)
         bound = abs(c) + sum(abs(a) * 4095 for a in finer) + 2**s
         assert s == 31 or not fits_coef or bound >= 2**31
@@ -385,7 +385,7 @@ def test_plan_round_trips_through_its_file(tmp_path):
 @given(
     data=st.data(),
     n_inputs=st.integers(1, 3),
-    rounding=st.sampled_from(["half-up", "floor"]),
+    rounding=st.sampled_from(["nearest", "floor"]),
     coef_bits=st.sampled_from([8, 16, 32]),
     acc_bits=st.sampled_from([32, 64]),
 )
