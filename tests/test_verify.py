@@ -145,3 +145,15 @@ def test_verify_runs_micropython_plain_and_viper(tmp_path):
     assert {"MicroPython probe.py (plain)", "MicroPython probe.py (viper)"} <= artefacts
     mp_random = [r for r in report.results if r.artefact.startswith("MicroPython") and r.vector_set == "random"]
     assert all(r.count == 10**4 and r.mismatches == 0 for r in mp_random)
+
+
+def test_report_as_plain_data_keeps_every_count():
+    from affix.verify.check import Report, Result
+
+    report = Report("probe", [Result("C probe.c", "corners", 8, 0), Result("C probe.c", "random", 100, 2,
+                                                                          [([1], [2], [3])])], ["note: x"])
+    data = report.to_dict()
+    assert (data["passed"], data["mismatches"], data["evaluations"]) == (False, 2, 108)
+    assert [r["vectors"] for r in data["results"]] == [8, 100]
+    assert data["results"][1]["examples"] == [[[1], [2], [3]]]
+    json.dumps(data)  # plain data only

@@ -50,6 +50,21 @@ class Report:
     def evaluations(self) -> int:
         return sum(r.count for r in self.results)
 
+    def to_dict(self) -> dict:
+        """The report as plain data (what a build keeps as verification.json)."""
+        return {
+            "name": self.name,
+            "passed": self.mismatches == 0,
+            "mismatches": self.mismatches,
+            "evaluations": self.evaluations,
+            "results": [
+                {"artefact": r.artefact, "vector_set": r.vector_set, "vectors": r.count,
+                 "mismatches": r.mismatches, "examples": [list(e) for e in r.examples]}
+                for r in self.results
+            ],
+            "notes": list(self.notes),
+        }
+
     def text(self) -> str:
         width = max(len(r.artefact) for r in self.results)
         lines = [f"{'artefact':<{width}}  {'vector set':<16} {'vectors':>10} {'mismatches':>10}"]
