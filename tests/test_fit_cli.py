@@ -94,7 +94,7 @@ BAD_INPUTS = {
     "singular inputs": (
         lambda p: write(p / "twin.csv", "b1,b2,b3,Fx,Fz\n" + "".join(f"{i},{2 * i},{i * i % 5},{i},{-i}\n" for i in range(20))),
         [],
-        r"inputs b1, b2 are nearly collinear .* pass --ridge 1e-05",
+        r"inputs b1, b2 are nearly collinear .* pass --ridge=1e-05",
     ),
     "bad folds": (good_csv, ["--folds", "1"], r"folds: must be 0 \(no cross-validation\) or at least 2"),
     "negative ridge": (good_csv, ["--ridge", "-0.5"], r"ridge: must be a finite number >= 0"),

@@ -9,8 +9,29 @@ Exit statuses:
     2  bad input: data, model/plan/manifest file, option value
     3  the accuracy budget cannot be met by any configuration
     4  an external tool the command needs is missing or failed
+
+Library code names the *parameter* at fault, never a command-line option:
+``UsageError(..., parameter="input_ranges")``, and inside any message
+``parameter("ridge")``.  A Python caller reads the parameter's name; the CLI
+renders the same error with its option spelling (``--range``, ``--ridge``).
 """
 from __future__ import annotations
+
+import re
+from collections.abc import Callable
+
+# Brackets a parameter's name inside a message; private-use code points, so
+# no data a message quotes is taken for one.
+_OPEN, _CLOSE = "\ue000", "\ue001"
+_MARKED = re.compile(f"{_OPEN}([^{_CLOSE}]*){_CLOSE}")
+
+
+def parameter(name: str) -> str:
+    """``name`` marked as a parameter in a message: shown as is to Python callers, as its option by the CLI."""
+    return f"{_OPEN}{name}{_CLOSE}"
+
+
+_mark = parameter  # UsageError's keyword argument of the same name hides the function there
 
 
 class AffixError(Exception):
@@ -19,19 +40,28 @@ class AffixError(Exception):
     exit_code = 2
 
     def __init__(self, message: str):
-        super().__init__(message)
-        self.message = " ".join(str(message).split())  # always one line
+        self.marked = " ".join(str(message).split())  # always one line; parameters still marked
+        super().__init__(self.message)
 
-    def format_message(self) -> str:
-        return f"affix: error: {self.message}"
+    @property
+    def message(self) -> str:
+        """The message as a Python caller reads it: parameters by their names."""
+        return self.render(lambda name: name)
+
+    def render(self, spell: Callable[[str], str]) -> str:
+        """The message with each marked parameter written as ``spell(name)``."""
+        return _MARKED.sub(lambda match: spell(match.group(1)), self.marked)
+
+    def format_message(self, spell: Callable[[str], str] = lambda name: name) -> str:
+        return f"affix: error: {self.render(spell)}"
 
 
 class UsageError(AffixError):
-    """An option or argument value is wrong; the message names the option."""
+    """An argument value is wrong; ``parameter`` names the argument (the CLI shows its option)."""
 
-    def __init__(self, message: str, option: str | None = None):
-        super().__init__(f"{option}: {message}" if option else message)
-        self.option = option
+    def __init__(self, message: str, parameter: str | None = None):
+        super().__init__(f"{_mark(parameter)}: {message}" if parameter else message)
+        self.parameter = parameter
 
 
 class DataError(AffixError):
@@ -47,6 +77,14 @@ class DataError(AffixError):
             where.append(f"column '{column}'")
         super().__init__(": ".join([", ".join(where), message]) if where else message)
         self.path, self.row, self.column = path, row, column
+
+
+class WriteError(AffixError):
+    """An output file or folder cannot be written (full disk, size limit, permissions); names the path."""
+
+    def __init__(self, message: str, path=None):
+        super().__init__(f"{path}: {message}" if path is not None else message)
+        self.path = path
 
 
 class FitError(AffixError):

@@ -24,4 +24,4 @@ def _check_float32_range(plan) -> None:
     """Refuse a model whose sums could overflow float32 over the box (inf would break the exact check)."""
     worst = magnitude_bound(plan.gain, plan.offset, plan.input_ranges)
     if not np.all(worst < FLOAT32_MAX / 2):  # margin for the rounding of each partial sum
-        raise UsageError("the model's outputs over the input box exceed the float32 range", "--arith float32")
+        raise UsageError("the model's outputs over the input box exceed the float32 range", "arith")

@@ -100,9 +100,9 @@ def check_identifier(name, what: str, max_length: int = INTERNAL_LENGTH) -> str:
 
 def check_names(name: str, inputs, outputs) -> None:
     """Check the estimator name and every input/output name, as emitted together."""
-    check_identifier(name, "--name", EXTERNAL_LENGTH - _EXTERNAL_SUFFIX)
+    check_identifier(name, "name", EXTERNAL_LENGTH - _EXTERNAL_SUFFIX)
     if name in MICROPYTHON_MODULES:
-        raise UsageError(f"'{name}.py' would shadow MicroPython's built-in module '{name}'; choose another name", "--name")
+        raise UsageError(f"'{name}.py' would shadow MicroPython's built-in module '{name}'; choose another name", "name")
     for kind, names in (("input", inputs), ("output", outputs)):
         seen = set()
         for column in names:

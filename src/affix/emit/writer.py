@@ -6,15 +6,15 @@ alone, never from the plan.
 """
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 from affix import files
 from affix.arithmetic import ROUNDING_RULES
-from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, STYLES
+from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, MANIFEST_SUFFIX, STYLES
 from affix.emit.context import input_ctype
 from affix.emit.names import check_names
 from affix.errors import UsageError
-
 
 
 def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str = "table") -> dict:
@@ -22,14 +22,16 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
     the manifest into ``out_dir``; return the manifest.
 
     Everything is rendered and checked before the first file is written, and
-    each file is written atomically, so an error leaves ``out_dir`` as it was.
+    the files land together (:class:`affix.files.FileSet`): an error leaves
+    ``out_dir`` as it was, and success replaces what an earlier emit wrote
+    there, leaving any other file alone.
     """
     languages = LANGUAGES if lang == "all" else (lang,)
-    _check_choice(lang, LANGUAGES + ("all",), "--lang")
-    _check_choice(arith, ARITHS, "--arith")
-    _check_choice(style, STYLES, "--style")
+    _check_choice(lang, LANGUAGES + ("all",), "lang")
+    _check_choice(arith, ARITHS, "arith")
+    _check_choice(style, STYLES, "style")
     if arith == "float32" and "micropython" in languages:
-        raise UsageError("float32 arithmetic is a C target only (MicroPython output is integer)", "--arith")
+        raise UsageError("float32 arithmetic is a C target only (MicroPython output is integer)", "arith")
     check_names(name, plan.inputs, plan.outputs)
 
     rendered: dict[str, dict[str, str]] = {}
@@ -45,13 +47,34 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
         notes += micropython_notes(plan)
 
     manifest = manifest_for(plan, name, arith, style, {k: sorted(v) for k, v in rendered.items()}, notes)
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    for sources in rendered.values():
-        for filename, text in sources.items():
-            files.write_text(out_dir / filename, text)
-    files.write_json(out_dir / f"{name}.manifest.json", manifest)
+    with files.FileSet(out_dir, parameter="out_dir", earlier=emitted_before) as staged:
+        for sources in rendered.values():
+            for filename, text in sources.items():
+                staged.write_text(filename, text)
+        staged.write_json(manifest_name(name), manifest)
     return manifest
+
+
+def manifest_name(name: str) -> str:
+    return f"{name}{MANIFEST_SUFFIX}"
+
+
+def emitted_before(out_dir: Path) -> set[str]:
+    """What earlier emits left in ``out_dir``: every manifest and the files each lists.
+
+    A folder holds one estimator (verify reads exactly one manifest), so an
+    emit replaces all of these; a manifest too garbled to list its files
+    still goes, and its files are left alone.
+    """
+    names = set()
+    for path in out_dir.glob(f"*{MANIFEST_SUFFIX}"):
+        names.add(path.name)
+        try:
+            listed = json.loads(path.read_text()).get("files", {}).values()
+            names.update(n for group in listed for n in group if isinstance(n, str))
+        except (OSError, UnicodeDecodeError, ValueError, AttributeError, TypeError):
+            continue
+    return names
 
 
 def manifest_for(plan, name: str, arith: str, style: str, file_names: dict, notes: list[str]) -> dict:

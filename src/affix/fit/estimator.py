@@ -13,7 +13,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from affix.errors import DataError, FitError, UsageError
+from affix.errors import DataError, FitError, UsageError, parameter
 from affix.fit import conditioning
 from affix.fit.adopt import adopt, default_names, is_fitted_linear
 from affix.fit.passes import file_moments, stream_moments
@@ -57,9 +57,9 @@ def fit(
     if is_fitted_linear(data):
         return adopt(data, inputs, outputs)
     if not (isinstance(ridge, (int, float)) and math.isfinite(ridge) and ridge >= 0):
-        raise UsageError(f"must be a finite number >= 0, got {ridge!r}", option="ridge")
+        raise UsageError(f"must be a finite number >= 0, got {ridge!r}", parameter="ridge")
     if folds == 1 or folds < 0:
-        raise UsageError(f"must be 0 (no cross-validation) or at least 2, got {folds}", option="folds")
+        raise UsageError(f"must be 0 (no cross-validation) or at least 2, got {folds}", parameter="folds")
     inputs, outputs, path, values = _open(data, inputs, outputs)
     m, width = len(inputs), len(inputs) + len(outputs)
     if path is not None:
@@ -168,7 +168,7 @@ def _solve(moments, m, ridge, r, condition, inputs):
     suggestion = max(conditioning.suggested_ridge(r), 10 * ridge)
     raise FitError(
         conditioning.describe(conditioning.collinear_inputs(r, inputs), condition)
-        + f": they do not determine the gains; pass --ridge {suggestion:g} or leave one of them out"
+        + f": they do not determine the gains; pass {parameter('ridge')}={suggestion:g} or leave one of them out"
     )
 
 
@@ -177,11 +177,12 @@ def _cross_validate(parts, m, ridge):
     if smallest < m + 2:
         raise FitError(
             f"too few rows for {len(parts)}-fold cross-validation: a training split would hold only "
-            f"{smallest} rows for {m} input(s); use fewer --folds, or --folds 0 to skip it"
+            f"{smallest} rows for {m} input(s); lower {parameter('folds')}, or set it to 0 to skip cross-validation"
         )
     try:
         return cross_validated_rms(parts, m, ridge)
     except np.linalg.LinAlgError:
         raise FitError(
-            f"a {len(parts)}-fold cross-validation split leaves the inputs singular; use --ridge or fewer --folds"
+            f"a {len(parts)}-fold cross-validation split leaves the inputs singular; "
+            f"set {parameter('ridge')} or lower {parameter('folds')}"
         ) from None

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from affix.errors import DataError
+from affix.errors import DataError, parameter
 from affix.intake.digest import FileDigest
 
 
@@ -62,7 +62,7 @@ def check_invalid(path, count: int, first_invalid) -> None:
         row, column = first_invalid
         raise DataError(
             f"{count} row(s) hold NaN, infinite or empty values, the first in column "
-            f"'{column}'; fix them or pass --drop-invalid to leave such rows out",
+            f"'{column}'; fix them or leave such rows out with {parameter('drop_invalid')}",
             path,
             row=row,
         )

@@ -21,24 +21,24 @@ def resolve_ranges(inputs, ranges) -> tuple[tuple[int, int], ...]:
     A mapping may hold the key None for the inputs it does not name.
     """
     if isinstance(ranges, Mapping):
-        _check_names(inputs, ranges, "--range")
+        _check_names(inputs, ranges, "input_ranges")
         missing = [name for name in inputs if name not in ranges and None not in ranges]
         if missing:
-            raise UsageError(f"no range for input(s) {', '.join(map(repr, missing))}", "--range")
+            raise UsageError(f"no range for input(s) {', '.join(map(repr, missing))}", "input_ranges")
         pairs = [ranges.get(name, ranges.get(None)) for name in inputs]
     elif len(ranges) == 2 and all(_is_number(v) for v in ranges):
         pairs = [ranges] * len(inputs)
     else:
         pairs = list(ranges)
         if len(pairs) != len(inputs):
-            raise UsageError(f"{len(pairs)} ranges given for {len(inputs)} inputs", "--range")
+            raise UsageError(f"{len(pairs)} ranges given for {len(inputs)} inputs", "input_ranges")
     box = tuple(_integer_range(name, pair) for name, pair in zip(inputs, pairs))
     if input_ctype(box) is None:
         widest = min(lo for lo, _ in box), max(hi for _, hi in box)
         raise UsageError(
             f"the box spans {widest[0]}..{widest[1]}, which no single input type holds "
             f"(the emitted code passes all inputs in one of {', '.join(INPUT_CTYPES)})",
-            "--range",
+            "input_ranges",
         )
     return box
 
@@ -82,12 +82,12 @@ def _integer_range(name, pair) -> tuple[int, int]:
     try:
         lo, hi = pair
     except (TypeError, ValueError):
-        raise UsageError(f"range of '{name}' must be a pair LO:HI, not {pair!r}", "--range") from None
+        raise UsageError(f"range of '{name}' must be a pair LO:HI, not {pair!r}", "input_ranges") from None
     if not all(_is_number(v) and float(v).is_integer() for v in (lo, hi)):
-        raise UsageError(f"range of '{name}' must be integer counts, not {lo}:{hi}", "--range")
+        raise UsageError(f"range of '{name}' must be integer counts, not {lo}:{hi}", "input_ranges")
     lo, hi = int(lo), int(hi)
     if lo > hi:
-        raise UsageError(f"range of '{name}' is inverted ({lo}:{hi}); write LO:HI with LO <= HI", "--range")
+        raise UsageError(f"range of '{name}' is inverted ({lo}:{hi}); write LO:HI with LO <= HI", "input_ranges")
     return lo, hi
 
 

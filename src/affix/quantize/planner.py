@@ -7,7 +7,7 @@ from dataclasses import replace
 import numpy as np
 
 from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS
-from affix.errors import UsageError
+from affix.errors import UsageError, parameter
 from affix.plan import Plan
 from affix.quantize.analysis import Problem
 from affix.quantize.box import reach, resolve_per_name, resolve_ranges
@@ -52,20 +52,20 @@ def plan_fixed_point(
         input units, to measure the integer reference on.
     search: False rounds every coefficient on its own (no error feedback).
     """
-    _check_choice(coef_bits, COEF_BITS, "--coef-bits")
-    _check_choice(acc_bits, ACC_BITS, "--acc-bits")
-    _check_choice(output_ctype, tuple(OUTPUT_CTYPES), "--output-type")
-    _check_choice(rounding, ROUNDINGS, "--rounding")
+    _check_choice(coef_bits, COEF_BITS, "coef_bits")
+    _check_choice(acc_bits, ACC_BITS, "acc_bits")
+    _check_choice(output_ctype, tuple(OUTPUT_CTYPES), "output_ctype")
+    _check_choice(rounding, ROUNDINGS, "rounding")
     box = resolve_ranges(model.inputs, input_ranges)
-    lsb = resolve_per_name(model.outputs, output_lsb, "--lsb", kind="lsb")
-    input_lsb = resolve_per_name(model.inputs, input_lsb, "--input-lsb", kind="input lsb")
+    lsb = resolve_per_name(model.outputs, output_lsb, "output_lsb", kind="lsb")
+    input_lsb = resolve_per_name(model.inputs, input_lsb, "input_lsb", kind="input lsb")
     scale = np.array([1.0 if q is None else q for q in input_lsb])
     physical = np.array([q is not None for q in input_lsb])
     gain = model.gain * scale  # per count
     largest = float(np.max(np.abs(gain) @ reach(box) + np.abs(model.offset)))
     if not largest < _LARGEST_OUTPUT:
         raise UsageError(f"the model's outputs reach {largest:.3g} over this box; the error analysis "
-                         f"squares them in double precision, so they must stay below {_LARGEST_OUTPUT:g}", "--range")
+                         f"squares them in double precision, so they must stay below {_LARGEST_OUTPUT:g}", "input_ranges")
     moments, source = augmented_moments(model, box, scale)
     float_rms = model.cv_rms if model.cv_rms is not None else model.rms
     problem = Problem(
@@ -97,14 +97,14 @@ def _check_choice(value, allowed, option):
 
 def _budget(model, budget, budget_rms, float_rms, *, default):
     if budget is not None and budget_rms is not None:
-        raise UsageError("give either a worst-case budget or an RMS-growth budget, not both", "--budget")
+        raise UsageError("give either a worst-case budget or an RMS-growth budget, not both", "budget")
     if budget is not None:
-        return Budget.worst_case(resolve_per_name(model.outputs, budget, "--budget", kind="budget"))
+        return Budget.worst_case(resolve_per_name(model.outputs, budget, "budget", kind="budget"))
     if budget_rms is not None:
         if not (isinstance(budget_rms, (int, float)) and math.isfinite(budget_rms) and budget_rms >= 0):
-            raise UsageError(f"must be a percentage >= 0, not {budget_rms!r}", "--budget-rms")
+            raise UsageError(f"must be a percentage >= 0, not {budget_rms!r}", "budget_rms")
         if float_rms is None:
-            raise UsageError("the model carries no RMS of its own to grow from; use --budget", "--budget-rms")
+            raise UsageError(f"the model carries no RMS of its own to grow from; use {parameter('budget')}", "budget_rms")
         return Budget.rms_growth(float(budget_rms), float_rms)
     if default and float_rms is not None:
         return Budget.rms_growth(DEFAULT_GROWTH_PERCENT, float_rms, default=True)

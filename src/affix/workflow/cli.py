@@ -2,17 +2,24 @@
 
 Each subcommand lives in its own module with ``register(subparsers)``, which
 adds its parser and sets ``run=`` to a function of the parsed arguments that
-returns the exit status.  User errors (:class:`affix.errors.AffixError`)
-become one ``affix: error: ...`` line on stderr and their exit status.
+returns the exit status, ``reads=`` to the arguments naming files it reads and
+``writes=`` to those naming what it writes ({argument: "file" or "folder"}).
+Before a command runs, every output is checked here (a folder where a file
+goes, a missing or read-only parent, an input it would replace), and while it
+runs no write may replace one of its inputs.  User errors
+(:class:`affix.errors.AffixError`) become one ``affix: error: ...`` line on
+stderr and their exit status, with library parameter names spelt as options.
 """
 from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import re
+import signal
 import sys
 
-from affix import __version__
+from affix import __version__, files
 from affix.errors import AffixError
 
 COMMAND_MODULES = (
@@ -24,6 +31,22 @@ COMMAND_MODULES = (
 )
 
 _NEGATIVE_VALUE = re.compile(r"^-(\d|\.\d)")
+
+# Library parameters whose name differs from the argument that sets them:
+# parameter -> the argparse dest that spells it.  Any other parameter is
+# spelt by the argument of the same name, where the command has one.
+PARAMETER_ARGUMENTS = {
+    "input_ranges": "range",
+    "output_lsb": "lsb",
+    "output_ctype": "output_type",
+    "search": "plain_coefficients",
+    "out_dir": "out",
+    "path": "out",
+}
+# A command whose output is cut short by a closed pipe ('affix ... | head')
+# ends quietly with the status a shell reports for a process that SIGPIPE
+# ended: 128 + 13.
+BROKEN_PIPE_STATUS = 128 + 13
 
 
 class OneLineParser(argparse.ArgumentParser):
@@ -54,23 +77,68 @@ def build_parser() -> argparse.ArgumentParser:
         "emit C or MicroPython and verify it bit for bit.",
     )
     parser.add_argument("--version", action="version", version=f"affix {__version__}")
-    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=OneLineParser)
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=OneLineParser)
     for name in COMMAND_MODULES:
         importlib.import_module(name).register(sub)
+    parser.set_defaults(reads=(), writes={})
     return parser
 
 
 def main(argv: list[str] | None = None) -> int:
-    argv = join_negative_values(list(sys.argv[1:] if argv is None else argv))
-    args = build_parser().parse_args(argv)
+    """Run one command line; the exit status.  Bare 'affix' lists the commands on stderr and exits 2."""
+    # A file-size limit (ulimit -f) makes a write fail with EFBIG, reported
+    # like any other failed write, instead of killing the process mid-write.
+    signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
     try:
-        return int(args.run(args) or 0)
+        try:
+            status = _run(join_negative_values(list(sys.argv[1:] if argv is None else argv)))
+        except SystemExit as exc:  # argparse's --help, --version and usage mistakes
+            status = exc.code if isinstance(exc.code, int) else 0 if exc.code is None else 2
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # Whoever read stdout has gone: send what is left to nowhere, so the
+        # interpreter's final flush cannot fail again with a traceback.
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return BROKEN_PIPE_STATUS
+    return status
+
+
+def _run(argv: list[str]) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help(sys.stderr)
+        return 2
+    command = _subparser(parser, args.command)
+    spell = lambda name: _spelling(command, name)  # noqa: E731
+    try:
+        with files.protected(getattr(args, dest) for dest in args.reads if getattr(args, dest)):
+            for dest, kind in args.writes.items():
+                check = files.check_folder_target if kind == "folder" else files.check_file_target
+                check(getattr(args, dest), dest)
+            return int(args.run(args) or 0)
     except AffixError as exc:
-        print(exc.format_message(), file=sys.stderr)
+        print(exc.format_message(spell), file=sys.stderr)
         return exc.exit_code
     except KeyboardInterrupt:
         print("affix: interrupted", file=sys.stderr)
         return 130
+
+
+def _subparser(parser: argparse.ArgumentParser, command: str) -> argparse.ArgumentParser:
+    subparsers = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    return subparsers.choices[command]
+
+
+def _spelling(command: argparse.ArgumentParser, parameter: str) -> str:
+    """How ``command``'s user writes ``parameter``: its option (--range) or argument (OUTDIR), else the name."""
+    dest = PARAMETER_ARGUMENTS.get(parameter, parameter)
+    for action in command._actions:
+        if action.dest == dest:
+            if action.option_strings:
+                return max(action.option_strings, key=len)
+            return action.metavar or action.dest.upper()
+    return parameter
 
 
 if __name__ == "__main__":

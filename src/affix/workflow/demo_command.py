@@ -8,7 +8,8 @@ from __future__ import annotations
 import shlex
 from pathlib import Path
 
-from affix.errors import UsageError
+from affix import files
+from affix.errors import WriteError
 from affix.workflow import demo_scenario
 
 # Worst-case deviation the integer code may add to each output: about a
@@ -25,16 +26,17 @@ def register(sub):
         "MicroPython, and verify them, printing each command as it runs.",
     )
     parser.add_argument("outdir", help="folder for the demo's files (created if missing)")
-    parser.set_defaults(run=lambda args: run_demo(args.outdir))
+    parser.set_defaults(run=lambda args: run_demo(args.outdir), writes={"outdir": "folder"})
 
 
 def run_demo(outdir) -> int:
     from affix.workflow.cli import main  # the CLI imports this module, so import it late
 
-    outdir = Path(outdir)
-    if outdir.exists() and not outdir.is_dir():
-        raise UsageError(f"'{outdir}' exists and is not a folder", option="OUTDIR")
-    outdir.mkdir(parents=True, exist_ok=True)
+    outdir = files.check_folder_target(outdir, "outdir")
+    try:
+        outdir.mkdir(exist_ok=True)
+    except OSError as exc:
+        raise WriteError(f"cannot create the folder ({exc.strerror})", outdir) from None
 
     data = outdir / "wrist_calibration.csv"
     demo_scenario.write_csv(data)

@@ -16,6 +16,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from affix import files
+
 BRIDGES = [f"bridge{k}" for k in range(1, 7)]
 INPUTS = BRIDGES + ["therm"]
 OUTPUTS = ["Fx", "Fy", "Fz", "Tx", "Ty", "Tz"]
@@ -61,4 +63,4 @@ def write_csv(path, rows: int = ROWS, seed: int = SEED) -> None:
         counts = ",".join(str(int(data[name][r])) for name in INPUTS)
         loads = ",".join(f"{data[name][r]:.4f}" for name in OUTPUTS)
         lines.append(f"{counts},{loads}")
-    path.write_text("\n".join(lines) + "\n")
+    files.write_text(path, "\n".join(lines) + "\n")

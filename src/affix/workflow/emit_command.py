@@ -22,16 +22,16 @@ def register(sub):
                         help="C layout: constant tables and loops (default) or straight-line code with immediates")
     parser.add_argument("--name", required=True, help="estimator name: prefix of every emitted symbol and file")
     parser.add_argument("--out", required=True, help="output folder (created if missing)")
-    parser.set_defaults(run=run)
+    parser.set_defaults(run=run, reads=("plan",), writes={"out": "folder"})
 
 
 def run(args) -> int:
-    from affix.emit.writer import emit  # loaded by this command only: start-up stays short
+    from affix.emit.writer import emit, manifest_name  # loaded by this command only: start-up stays short
 
     plan = Plan.load(args.plan)
     manifest = emit(plan, lang=args.lang, arith=args.arith, style=args.style, name=args.name, out_dir=args.out)
     for note in manifest["notes"]:
         print(f"affix: note: {note}", file=sys.stderr)
-    files = [f for names in manifest["files"].values() for f in names] + [f"{args.name}.manifest.json"]
+    files = [f for names in manifest["files"].values() for f in names] + [manifest_name(args.name)]
     print(f"wrote {', '.join(files)} to {args.out}")
     return 0

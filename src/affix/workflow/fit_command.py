@@ -29,19 +29,17 @@ def register(sub):
     parser.add_argument("--folds", type=int, default=5, help="k for k-fold cross-validation, 0 to skip (default 5)")
     parser.add_argument("--drop-invalid", action="store_true", help="leave out rows holding NaN, infinite or empty values")
     parser.add_argument("--json", action="store_true", help="print the summary as JSON instead of a table")
-    parser.set_defaults(run=run)
+    parser.set_defaults(run=run, reads=("data",), writes={"out": "file"})
 
 
 def run(args) -> int:
     out = Path(args.out)
-    if not out.parent.is_dir():
-        raise UsageError(f"folder '{out.parent}' does not exist", option="--out")
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         model = affix.fit(
             args.data,
-            _names(args.inputs, "--inputs"),
-            _names(args.outputs, "--outputs"),
+            _names(args.inputs, "inputs"),
+            _names(args.outputs, "outputs"),
             ridge=args.ridge,
             folds=args.folds,
             drop_invalid=args.drop_invalid,
@@ -98,8 +96,8 @@ def format_table(summary) -> str:
     return "\n".join(lines)
 
 
-def _names(text: str, option: str) -> list[str]:
+def _names(text: str, parameter: str) -> list[str]:
     names = [name.strip() for name in text.split(",")]
     if not all(names):
-        raise UsageError(f"empty column name in '{text}'", option=option)
+        raise UsageError(f"empty column name in '{text}'", parameter)
     return names

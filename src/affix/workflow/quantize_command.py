@@ -60,16 +60,16 @@ def register(sub):
                         help="leave out calibration rows holding NaN, infinite or empty values")
     parser.add_argument("--out", required=True, metavar="PLAN_JSON", help="where to write the plan")
     parser.add_argument("--json", action="store_true", help="print a JSON summary instead of the table")
-    parser.set_defaults(run=run)
+    parser.set_defaults(run=run, reads=("model", "data"), writes={"out": "file"})
 
 
 def run(args) -> int:
     from affix.quantize import plan_fixed_point  # loaded by this command only: start-up stays short
 
     model = Model.load(args.model)
-    ranges = _named(args.range, "--range", _range_value)
+    ranges = _named(args.range, "range", _range_value)
     if not ranges:
-        raise UsageError("give the input range in counts, e.g. --range 0:4095", "--range")
+        raise UsageError("give the input range in counts, e.g. --range 0:4095", "range")
     calibration = None
     if args.data:
         from affix.intake import read_chunks
@@ -81,54 +81,55 @@ def run(args) -> int:
         coef_bits=args.coef_bits,
         acc_bits=args.acc_bits,
         output_ctype=args.output_type,
-        output_lsb=_named(args.lsb, "--lsb", _number) or None,
-        input_lsb=_named(args.input_lsb, "--input-lsb", _number) or None,
-        budget=_named([p for b in args.budget for p in b.split(",")], "--budget", _number) or None,
+        output_lsb=_named(args.lsb, "lsb", _number) or None,
+        input_lsb=_named(args.input_lsb, "input_lsb", _number) or None,
+        budget=_named([p for b in args.budget for p in b.split(",")], "budget", _number) or None,
         budget_rms=None if args.budget_rms is None else _percent(args.budget_rms),
         rounding=args.rounding,
         calibration=calibration,
         search=not args.plain_coefficients,
     )
     report = json.dumps(summary(plan), indent=2) if args.json else table(plan)
-    try:
-        plan.save(args.out)
-    except OSError as exc:
-        raise UsageError(f"cannot write '{args.out}': {exc.strerror}", "--out") from None
+    plan.save(args.out)
     print(report)
     return 0
 
 
-def _named(values, option, parse) -> dict:
-    """{name: value} from [NAME=]VALUE items; the key None holds a value for all."""
+def _named(values, parameter, parse) -> dict:
+    """{name: value} from [NAME=]VALUE items; the key None holds a value for all.  A name given twice is
+    refused: which of two values the user meant is not ours to guess."""
     result = {}
     for item in values:
         name, sep, text = item.rpartition("=")
         key = name.strip() if sep else None
         if sep and not key:
-            raise UsageError(f"'{item}' names no input or output before '='", option)
-        result[key] = parse(text.strip(), option)
+            raise UsageError(f"'{item}' names no input or output before '='", parameter)
+        if key in result:
+            what = "the value without a NAME= (for every name)" if key is None else f"'{key}'"
+            raise UsageError(f"{what} is given twice", parameter)
+        result[key] = parse(text.strip(), parameter)
     return result
 
 
-def _range_value(text, option):
+def _range_value(text, parameter):
     lo, sep, hi = text.partition(":")
     try:
         if sep:
             return int(lo), int(hi)
     except ValueError:
         pass
-    raise UsageError(f"'{text}' is not LO:HI in integer counts", option)
+    raise UsageError(f"'{text}' is not LO:HI in integer counts", parameter)
 
 
-def _number(text, option):
+def _number(text, parameter):
     try:
         return float(text)
     except ValueError:
-        raise UsageError(f"'{text}' is not a number", option) from None
+        raise UsageError(f"'{text}' is not a number", parameter) from None
 
 
 def _percent(text):
-    return _number(text.strip().removesuffix("%"), "--budget-rms")
+    return _number(text.strip().removesuffix("%"), "budget_rms")
 
 
 def summary(plan) -> dict:

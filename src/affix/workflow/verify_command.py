@@ -20,12 +20,12 @@ def register(sub):
                         "where the plan records one, rounded to the nearest integer (halves to even) and "
                         "limited to the input type")
     parser.add_argument("--seed", type=int, default=0, help="seed of the random vectors (default 0)")
-    parser.set_defaults(run=run)
+    parser.set_defaults(run=run, reads=("dir", "data"))
 
 
 def run(args) -> int:
     if args.vectors < 1:
-        raise UsageError("must be at least 1", "--vectors")
+        raise UsageError("must be at least 1", "vectors")
     from affix.verify.check import verify  # loaded by this command only: start-up stays short
 
     try:
