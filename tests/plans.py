@@ -12,6 +12,8 @@ import numpy as np
 from affix.arithmetic import INPUT_CTYPES, rounding_constant
 from affix.plan import Plan
 
+LSB = 2.0**-8  # every output's lsb: Q7.8 in int16_t
+
 RANGE_KINDS = {  # name -> (lo, hi) of a type the inputs are drawn within
     "int8": INPUT_CTYPES["int8_t"],
     "uint8": INPUT_CTYPES["uint8_t"],
@@ -72,13 +74,14 @@ def random_plan(
         coefficients=tuple(coefficients),
         offsets=tuple(offsets),
         shifts=tuple(shifts),
-        output_lsb=tuple(2.0**-8 for _ in range(n_outputs)),
+        output_lsb=(LSB,) * n_outputs,
         output_ctype=output_ctype,
         coef_bits=coef_bits,
         acc_bits=acc_bits,
         rounding=rounding,
-        gain=tuple(tuple(a / 2.0**s * 2.0**8 for a in row) for row, s in zip(coefficients, shifts)),
-        offset=tuple(c / 2.0**s * 2.0**8 for c, s in zip(offsets, shifts)),
+        # physical = count * lsb, and a count is acc / 2**s: so gain = a / 2**s * lsb, with lsb = 2**-8.
+        gain=tuple(tuple(a / 2.0**s * LSB for a in row) for row, s in zip(coefficients, shifts)),
+        offset=tuple(c / 2.0**s * LSB for c, s in zip(offsets, shifts)),
         model_sha256="0" * 64,
     )
     plan.validate()

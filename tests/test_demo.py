@@ -10,7 +10,9 @@ from conftest import require, run_affix
 
 
 def test_demo_runs_the_whole_job(tmp_path):
+    require("gcc")  # the verification step builds the C
     require("micropython")
+    require("mpy-cross")
     out = tmp_path / "demo"
     result = run_affix("demo", out)
     assert result.returncode == 0, result.stdout + result.stderr
