@@ -36,13 +36,14 @@ def require(tool: str) -> str:
     pytest.skip(message)
 
 
-def run_affix(*args, cwd=None) -> subprocess.CompletedProcess:
-    """Run the real CLI in a child process, as a user would."""
+def run_affix(*args, cwd=None, **options) -> subprocess.CompletedProcess:
+    """Run the real CLI in a child process, as a user would; ``options`` go to subprocess.run."""
     return subprocess.run(
         [sys.executable, "-m", "affix", *map(str, args)],
         capture_output=True,
         text=True,
         cwd=cwd,
+        **options,
     )
 
 

@@ -187,6 +187,7 @@ def test_float32_code_and_manifest(tmp_path):
     assert "-ffp-contract=off" in header and "-ffast-math" in header and "FLT_EVAL_METHOD" in header
 
 
+@pytest.mark.bad_input("emit")
 def test_unsafe_output_name_never_reaches_a_file(tmp_path):
     plan = random_plan(2)
     plan = type(plan)(**{**plan.__dict__, "outputs": ("x0", "evil*/ int y;")})
@@ -197,6 +198,7 @@ def test_unsafe_output_name_never_reaches_a_file(tmp_path):
     assert not (tmp_path / "out").exists()
 
 
+@pytest.mark.bad_input("emit")
 def test_float32_micropython_is_refused_before_writing(tmp_path):
     with pytest.raises(UsageError, match="^arith: ") as caught:
         emit(random_plan(2), lang="all", arith="float32", name="probe", out_dir=tmp_path / "out")
@@ -240,6 +242,7 @@ def test_float32_error_bound_in_the_header_holds(plan_kind):
         assert f"within {output['float32_error_bound']:.3g} of the exact model" in render_c(plan, "probe", arith="float32")["probe.h"]
 
 
+@pytest.mark.bad_input("emit")
 @pytest.mark.parametrize(
     "field,value",
     [("model_sha256", "*/ #include <stdio.h> /*"), ("tool_version", "0.1\n#define x"), ("input_lsb", ["*/", 1, 1, 1])],

@@ -94,6 +94,7 @@ def test_duplicate_and_bad_columns_name_the_column():
         check_names("est", ["y"], ["class"])
 
 
+@pytest.mark.bad_input("emit")
 def test_cli_refuses_a_bad_name_and_writes_nothing(tmp_path):
     random_plan(3).save(tmp_path / "plan.json")
     done = run_affix("emit", tmp_path / "plan.json", "--lang", "all", "--name", "static", "--out", tmp_path / "out")

@@ -99,6 +99,7 @@ BAD_INPUT = {
 }
 
 
+@pytest.mark.bad_input("quantize")
 @pytest.mark.parametrize("case", BAD_INPUT)
 def test_bad_input_is_one_line_nonzero_and_writes_no_plan(case, model_file, tmp_path):
     arguments, status, fragment = BAD_INPUT[case]
@@ -118,6 +119,7 @@ MODEL_DEFECTS = {
 }
 
 
+@pytest.mark.bad_input("quantize")
 @pytest.mark.parametrize("case", MODEL_DEFECTS)
 def test_a_file_that_is_not_a_model_is_one_line_and_writes_no_plan(case, tmp_path):
     path = tmp_path / "model.json"
@@ -129,6 +131,7 @@ def test_a_file_that_is_not_a_model_is_one_line_and_writes_no_plan(case, tmp_pat
     assert not out.exists()
 
 
+@pytest.mark.bad_input("quantize")
 def test_rms_budget_needs_the_models_own_rms(tmp_path):
     path = tmp_path / "adopted.json"
     Model(inputs=["a"], outputs=["x"], gain=[[0.5]], offset=[0.0]).save(path)

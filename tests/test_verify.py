@@ -89,6 +89,7 @@ def test_a_wrong_constant_is_caught_and_shown(tmp_path):
     assert done.stderr.startswith("affix: error:") and len(done.stderr.strip().splitlines()) == 1
 
 
+@pytest.mark.bad_input("verify")
 def test_missing_manifest_is_a_file_error(tmp_path):
     done = run_affix("verify", tmp_path)
     assert done.returncode == 2

@@ -165,6 +165,8 @@ class FileSet:
                 raise WriteError(f"cannot create the folder ({exc.strerror})", self.shown) from None
             return
         earlier = {n for n in (self.earlier(self.folder) if self.earlier else ()) if _is_plain_name(n)}
+        gone = sorted(n for n in earlier - set(self.names) if os.path.lexists(self.folder / n))
+        self._check_replaced(self.names + gone)
         for name in self.names:
             target = self.folder / name
             if target.is_dir() and not target.is_symlink():
@@ -172,8 +174,6 @@ class FileSet:
             if os.path.lexists(target) and name not in earlier:
                 raise UsageError(f"'{self.shown / name}' exists and affix did not write it; move it away or "
                                  f"write to another folder", self.parameter)
-        gone = sorted(n for n in earlier - set(self.names) if os.path.lexists(self.folder / n))
-        self._check_replaced(self.names + gone)
         self._swap(gone)
 
     def _check_replaced(self, names) -> None:

@@ -55,6 +55,11 @@ class OneLineParser(argparse.ArgumentParser):
     def error(self, message):
         self.exit(2, f"affix: error: {self.prog}: {message} (see '{self.prog} --help')\n")
 
+    def _print_message(self, message, file=None):
+        # argparse ignores a failed write; a closed pipe must end --help as it ends every command.
+        if message:
+            (file or sys.stderr).write(message)
+
 
 def join_negative_values(argv: list[str]) -> list[str]:
     """Let users write ``--range -2048:2047``: glue a value that starts with
