@@ -479,3 +479,20 @@ def test_messages_that_suggest_a_parameter_name_it_for_python_and_the_option_for
     result = run_affix("fit", "collinear.csv", "--inputs", "p,q,r", "--outputs", "s", "--out", "m.json", cwd=work)
     assert result.returncode == 2 and "pass --ridge=" in result.stderr, result.stderr
     assert not (work / "m.json").exists()
+
+
+@pytest.mark.bad_input("demo")
+@pytest.mark.parametrize("outdir_exists", [False, True])
+def test_a_demo_whose_last_step_fails_leaves_outdir_as_it_was(work, monkeypatch, capsys, outdir_exists):
+    # Fit, quantize and emit run for real; verify reports a missing tool (status 4), as it would without gcc.
+    from affix.workflow import cli, demo_command
+
+    real_main = cli.main
+    monkeypatch.setattr(cli, "main", lambda argv: 4 if argv[0] == "verify" else real_main(argv))
+    if outdir_exists:
+        (work / "demo").mkdir()
+        (work / "demo" / "notes.txt").write_text("mine\n")
+    before = snapshot(work)
+    assert demo_command.run_demo(work / "demo") == 4
+    assert "$ affix emit" in capsys.readouterr().out  # the steps before verify did run
+    assert snapshot(work) == before

@@ -103,10 +103,12 @@ class FileSet:
         with FileSet(out_dir, parameter="out_dir", earlier=names_written_before) as staged:
             staged.write_text("probe.c", text)
             staged.write_json("probe.manifest.json", manifest)
+            records = staged.entry("records")  # a path to fill in any other way: a file or a folder
 
-    The files are written into a staging folder; leaving the block without an
-    exception moves them into place, and with one (a full disk, a file-size
-    limit, Ctrl-C) removes the staging folder and leaves ``folder`` as it was.
+    The entries are written into a staging folder (``staged.staging``);
+    leaving the block without an exception moves them into place, and with
+    one (a full disk, a file-size limit, Ctrl-C) removes the staging folder
+    and leaves ``folder`` as it was.
 
     A folder that does not exist yet is staged beside it and appears with one
     rename.  An existing folder keeps its identity (its mode, a symbolic link
@@ -116,7 +118,8 @@ class FileSet:
     sets remains), is moved aside and the new files renamed in; renames need
     no space, and if one fails all are undone.  Other files in the folder are
     left alone, and one the set would overwrite is refused unless ``earlier``
-    names it: affix replaces only what it wrote.
+    names it: affix replaces only what it wrote.  A folder is replaced only
+    by a folder, and one that the new set lacks stays.
     """
 
     def __init__(self, folder, *, parameter: str, earlier: Callable[[Path], Iterable[str]] | None = None):
@@ -144,15 +147,19 @@ class FileSet:
             if self.staging is not None and self.staging.exists():
                 shutil.rmtree(self.staging, ignore_errors=True)
 
-    def write_text(self, name: str, text: str) -> None:
+    def entry(self, name: str) -> Path:
+        """The staging path of entry ``name``, for the caller to create (a file or a folder)."""
         if name in self.names or not _is_plain_name(name):
             raise ValueError(f"not a new plain file name: {name!r}")  # a bug in the caller, not a user error
+        self.names.append(name)
+        return self.staging / name
+
+    def write_text(self, name: str, text: str) -> None:
         try:
-            with open(self.staging / name, "x", encoding="utf-8", newline="\n") as handle:
+            with open(self.entry(name), "x", encoding="utf-8", newline="\n") as handle:
                 handle.write(text)
         except OSError as exc:
             raise WriteError(f"cannot write ({exc.strerror})", self.shown / name) from None
-        self.names.append(name)
 
     def write_json(self, name: str, data) -> None:
         self.write_text(name, json_text(data))
@@ -165,11 +172,12 @@ class FileSet:
                 raise WriteError(f"cannot create the folder ({exc.strerror})", self.shown) from None
             return
         earlier = {n for n in (self.earlier(self.folder) if self.earlier else ()) if _is_plain_name(n)}
-        gone = sorted(n for n in earlier - set(self.names) if os.path.lexists(self.folder / n))
+        gone = sorted(n for n in earlier - set(self.names)
+                      if os.path.lexists(self.folder / n) and not _is_folder(self.folder / n))
         self._check_replaced(self.names + gone)
         for name in self.names:
             target = self.folder / name
-            if target.is_dir() and not target.is_symlink():
+            if _is_folder(target) and not _is_folder(self.staging / name):
                 raise UsageError(f"'{self.shown / name}' is a folder where affix would write a file", self.parameter)
             if os.path.lexists(target) and name not in earlier:
                 raise UsageError(f"'{self.shown / name}' exists and affix did not write it; move it away or "
@@ -178,7 +186,9 @@ class FileSet:
 
     def _check_replaced(self, names) -> None:
         for name in names:
-            if _is_protected(self.folder / name):
+            target = self.folder / name
+            inside = (Path(top) / f for top, _, found in os.walk(target) for f in found) if _is_folder(target) else ()
+            if any(map(_is_protected, (target, *inside))):
                 raise UsageError(f"'{self.shown / name}' is an input of this command; writing the folder "
                                  f"would replace it", self.parameter)
 
@@ -259,6 +269,11 @@ def _identity(path) -> tuple[int, int] | None:
 
 def _is_protected(path: Path) -> bool:
     return _identity(path) in _protected.get()
+
+
+def _is_folder(path: Path) -> bool:
+    """A folder itself, not a link to one (a link is replaced like a file)."""
+    return path.is_dir() and not path.is_symlink()
 
 
 def _is_plain_name(name) -> bool:

@@ -5,17 +5,18 @@ same entry point, so the demo doubles as a worked example of the workflow.
 """
 from __future__ import annotations
 
+import os
 import shlex
 from pathlib import Path
 
 from affix import files
-from affix.errors import WriteError
 from affix.workflow import demo_scenario
 
 # Worst-case deviation the integer code may add to each output: about a
 # sixth of the estimator's own RMS error, so rounding stays well below it.
 BUDGET = {"Fx": 0.05, "Fy": 0.05, "Fz": 0.1, "Tx": 0.003, "Ty": 0.003, "Tz": 0.002}
 ESTIMATOR = "wrist_ft"
+DATA, MODEL, PLAN, FIRMWARE = "wrist_calibration.csv", "wrist_model.json", "wrist_plan.json", "firmware"
 
 
 def register(sub):
@@ -30,37 +31,64 @@ def register(sub):
 
 
 def run_demo(outdir) -> int:
+    """Run the demo's steps in a staging folder; OUTDIR gets their files only when every step has passed."""
+    try:
+        with files.FileSet(outdir, parameter="outdir", earlier=_earlier_demo) as staged:
+            print(f"the commands run in a folder that becomes {outdir} when every step has passed\n")
+            working = os.getcwd()
+            os.chdir(staged.staging)  # the commands name their files as a user in OUTDIR would
+            try:
+                _steps(staged)
+            finally:
+                os.chdir(working)
+    except _StepFailed as failed:
+        return failed.status
+    print(f"done: {Path(outdir) / FIRMWARE / (ESTIMATOR + '.h')} and {ESTIMATOR}.c for C, "
+          f"{ESTIMATOR}.py for MicroPython")
+    return 0
+
+
+class _StepFailed(Exception):
+    """A step ended with a non-zero status (its own error line is printed): nothing of the demo is kept."""
+
+    def __init__(self, status: int):
+        super().__init__(status)
+        self.status = status
+
+
+def _steps(staged) -> None:
     from affix.workflow.cli import main  # the CLI imports this module, so import it late
 
-    outdir = files.check_folder_target(outdir, "outdir")
-    try:
-        outdir.mkdir(exist_ok=True)
-    except OSError as exc:
-        raise WriteError(f"cannot create the folder ({exc.strerror})", outdir) from None
-
-    data = outdir / "wrist_calibration.csv"
-    demo_scenario.write_csv(data)
-    print(f"step 1: the calibration rig's log, {demo_scenario.ROWS} rows -> {data}\n")
-
-    model, plan, firmware = outdir / "wrist_model.json", outdir / "wrist_plan.json", outdir / "firmware"
+    demo_scenario.write_csv(staged.entry(DATA))
+    print(f"step 1: the calibration rig's log, {demo_scenario.ROWS} rows -> {DATA}\n")
+    for name in (MODEL, PLAN, FIRMWARE):
+        staged.entry(name)
     steps = [
         ("fit counts to wrench",
-         ["fit", data, "--inputs", ",".join(demo_scenario.INPUTS), "--outputs", ",".join(demo_scenario.OUTPUTS),
-          "--out", model]),
+         ["fit", DATA, "--inputs", ",".join(demo_scenario.INPUTS), "--outputs", ",".join(demo_scenario.OUTPUTS),
+          "--out", MODEL]),
         ("choose the integer format against the budget",
-         ["quantize", model, "--range", "-32768:32767", "--range", "therm=0:4095",
+         ["quantize", MODEL, "--range", "-32768:32767", "--range", "therm=0:4095",
           "--output-type", "int16_t", "--budget", ",".join(f"{k}={v}" for k, v in BUDGET.items()),
-          "--data", data, "--out", plan]),
-        ("emit C and MicroPython", ["emit", plan, "--lang", "all", "--name", ESTIMATOR, "--out", firmware]),
-        ("verify them bit for bit", ["verify", firmware, "--data", data]),
+          "--data", DATA, "--out", PLAN]),
+        ("emit C and MicroPython", ["emit", PLAN, "--lang", "all", "--name", ESTIMATOR, "--out", FIRMWARE]),
+        ("verify them bit for bit", ["verify", FIRMWARE, "--data", DATA]),
     ]
     for number, (title, argv) in enumerate(steps, start=2):
-        argv = [str(a) for a in argv]
         print(f"step {number}: {title}\n$ affix {shlex.join(argv)}")
         status = main(argv)
         print()
         if status:
-            return status
-    print(f"done: {firmware / (ESTIMATOR + '.h')} and {ESTIMATOR}.c for C, {ESTIMATOR}.py for MicroPython")
-    return 0
+            raise _StepFailed(status)
 
+
+def _earlier_demo(outdir: Path) -> set[str]:
+    """What an earlier demo left in OUTDIR: its three files, and its firmware folder if it holds only
+    what an emit wrote (a folder of anyone else's stays untouched, and the demo is refused)."""
+    from affix.emit.writer import emitted_before
+
+    names = {DATA, MODEL, PLAN}
+    firmware = outdir / FIRMWARE
+    if firmware.is_dir() and set(os.listdir(firmware)) <= emitted_before(firmware):
+        names.add(FIRMWARE)
+    return names
