@@ -463,7 +463,7 @@ def test_the_cli_spells_the_parameter_as_its_option(work, option):
 
 def test_every_parameter_in_the_spelling_table_is_an_argument_of_some_command():
     parser = build_parser()
-    commands = next(a for a in parser._actions if a.dest == "command").choices.values()
+    commands = parser.commands.values()
     dests = {action.dest for command in commands for action in command._actions}
     assert set(PARAMETER_ARGUMENTS.values()) <= dests
 

@@ -13,6 +13,7 @@ stderr and their exit status, with library parameter names spelt as options.
 from __future__ import annotations
 
 import argparse
+import functools
 import importlib
 import os
 import re
@@ -86,6 +87,7 @@ def build_parser() -> argparse.ArgumentParser:
     for name in COMMAND_MODULES:
         importlib.import_module(name).register(sub)
     parser.set_defaults(reads=(), writes={})
+    parser.commands = sub.choices  # command name -> its parser
     return parser
 
 
@@ -93,7 +95,8 @@ def main(argv: list[str] | None = None) -> int:
     """Run one command line; the exit status.  Bare 'affix' lists the commands on stderr and exits 2."""
     # A file-size limit (ulimit -f) makes a write fail with EFBIG, reported
     # like any other failed write, instead of killing the process mid-write.
-    signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
+    if hasattr(signal, "SIGXFSZ"):  # POSIX only
+        signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
     try:
         try:
             status = _run(join_negative_values(list(sys.argv[1:] if argv is None else argv)))
@@ -114,8 +117,7 @@ def _run(argv: list[str]) -> int:
     if args.command is None:
         parser.print_help(sys.stderr)
         return 2
-    command = _subparser(parser, args.command)
-    spell = lambda name: _spelling(command, name)  # noqa: E731
+    spell = functools.partial(_spelling, parser.commands[args.command])
     try:
         with files.protected(getattr(args, dest) for dest in args.reads if getattr(args, dest)):
             for dest, kind in args.writes.items():
@@ -128,11 +130,6 @@ def _run(argv: list[str]) -> int:
     except KeyboardInterrupt:
         print("affix: interrupted", file=sys.stderr)
         return 130
-
-
-def _subparser(parser: argparse.ArgumentParser, command: str) -> argparse.ArgumentParser:
-    subparsers = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
-    return subparsers.choices[command]
 
 
 def _spelling(command: argparse.ArgumentParser, parameter: str) -> str:
