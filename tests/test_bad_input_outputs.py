@@ -115,8 +115,12 @@ FILE_TARGETS = {
     "a path below a path below a file": (None, "{input}/deeper/out.json", "is a file, so"),
     "a missing folder": (None, "missing/out.json", "folder 'missing' does not exist"),
     "a read-only folder": (lambda w, i: read_only(w, "locked"), "locked/out.json", "folder 'locked' is not writable"),
+    "a name longer than the file system allows": (None, "n" * 300, "cannot be written (File name too long)"),
+    "a folder that is a loop of links": (lambda w, i: (w / "loop").symlink_to("loop"), "loop/out.json",
+                                         "'loop' is a symbolic link that leads to no folder"),
 }
-FILE_TARGETS_WITHOUT_INPUT = ("an empty path", "an existing folder", "a missing folder", "a read-only folder")
+FILE_TARGETS_WITHOUT_INPUT = ("an empty path", "an existing folder", "a missing folder", "a read-only folder",
+                              "a name longer than the file system allows", "a folder that is a loop of links")
 
 
 def _file_target_case(work, case, input_name):
@@ -155,6 +159,22 @@ def test_fit_reading_through_a_link_may_not_write_the_file_behind_it(work):
     before = snapshot(work)
     result = run_affix(*["link.csv" if a == "data.csv" else a for a in FIT], "--out", "data.csv", cwd=work)
     assert_refused(result, "is an input of this command", before, work)
+
+
+@pytest.mark.bad_input("quantize")
+def test_a_device_is_written_into_never_replaced(work):
+    # Renaming a file over /dev/null (which root may do) would replace the device for the whole machine.
+    result = run_affix(*QUANTIZE, "--out", os.devnull, cwd=work)
+    assert result.returncode == 0, result.stderr
+    assert stat.S_ISCHR(os.stat(os.devnull).st_mode)
+
+
+def test_a_name_near_the_file_system_limit_is_written(work):
+    # The temporary name beside it must not outgrow the 255 bytes the name itself fits in.
+    name = "m" * 250
+    result = run_affix(*QUANTIZE, "--out", name, cwd=work)
+    assert result.returncode == 0, result.stderr
+    assert json.loads((work / name).read_text())["format"] == "affix.plan/1"
 
 
 # Repeated values for one name: the last one used to win in silence.
@@ -205,6 +225,7 @@ FOLDER_TARGETS = {
         "fwlink", "'fwlink/probe.h' is an input of this command"),
     "a folder where a file goes": (lambda w: (w / "fw" / "probe.py").mkdir(parents=True), "fw",
                                    "'fw/probe.py' is a folder where affix would write a file"),
+    "a name longer than the file system allows": (None, "n" * 300, "cannot be written (File name too long)"),
     "a file of the user's where a file goes": (
         lambda w: (w / "fw").mkdir() or (w / "fw" / "probe.h").write_text("/* mine */\n"), "fw",
         "'fw/probe.h' exists and affix did not write it"),

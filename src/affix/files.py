@@ -32,6 +32,7 @@ from affix.errors import FileFormatError, UsageError, WriteError
 _FILE_MODE = 0o666
 _FOLDER_MODE = 0o777
 _STAGING = ".affix-staging-"
+_NAME_KEPT = 100  # of a target's name in a temporary one, which must stay within the file system's 255 bytes
 
 _protected: contextvars.ContextVar[frozenset] = contextvars.ContextVar("protected", default=frozenset())
 
@@ -50,32 +51,45 @@ def protected(paths: Iterable):
 def check_file_target(path, parameter: str) -> Path:
     """``path`` as a Path if a file can be written there, else a UsageError naming ``parameter``."""
     path = _target_path(path, parameter)
-    if path.is_dir():
-        raise UsageError(f"'{path}' is a folder; give a file name", parameter)
-    _check_folder_of(path, parameter)
-    if _is_protected(path):
-        raise UsageError(f"'{path}' is an input of this command; writing there would replace it", parameter)
+    with _unusable(path, parameter):
+        if path.is_dir():
+            raise UsageError(f"'{path}' is a folder; give a file name", parameter)
+        _check_folder_of(path, parameter)
+        if _is_protected(path):
+            raise UsageError(f"'{path}' is an input of this command; writing there would replace it", parameter)
     return path
 
 
 def check_folder_target(path, parameter: str) -> Path:
     """``path`` as a Path if a folder of files can be written there (made if missing), else a UsageError."""
     path = _target_path(path, parameter)
-    if path.is_dir():
-        if not os.access(path, os.W_OK | os.X_OK):
-            raise UsageError(f"folder '{path}' is not writable", parameter)
-        return path
-    if path.exists():
-        raise UsageError(f"'{path}' is a file, not a folder", parameter)
-    _check_folder_of(path, parameter)
+    with _unusable(path, parameter):
+        if path.is_dir():
+            if not os.access(path, os.W_OK | os.X_OK):
+                raise UsageError(f"folder '{path}' is not writable", parameter)
+            return path
+        if path.exists():
+            raise UsageError(f"'{path}' is a file, not a folder", parameter)
+        _check_folder_of(path, parameter)
     return path
 
 
 def write_text(path, text: str, *, parameter: str = "path") -> None:
-    """Write via a temporary file in the same folder, then rename it into place."""
+    """Write via a temporary file in the same folder, then rename it into place.
+
+    A device or a pipe (``/dev/null``, ``/dev/stdout``) is written as it is:
+    renaming a file over it would replace the device itself.
+    """
     path = check_file_target(path, parameter)
+    if path.exists() and not path.is_file():
+        try:
+            with open(path, "w", encoding="utf-8", newline="\n") as handle:
+                handle.write(text)
+        except OSError as exc:
+            raise WriteError(f"cannot write ({exc.strerror})", path) from None
+        return
     try:
-        temporary = _new_file(path.parent, f".{path.name}.", lambda handle: handle.write(text))
+        temporary = _new_file(path.parent, f".{path.name[:_NAME_KEPT]}.", lambda handle: handle.write(text))
     except OSError as exc:
         raise WriteError(f"cannot write ({exc.strerror})", path) from None
     try:
@@ -132,7 +146,8 @@ class FileSet:
 
     def __enter__(self) -> "FileSet":
         self.existed = self.folder.is_dir()
-        where, prefix = (self.folder, _STAGING) if self.existed else (self.folder.parent, f".{self.folder.name}{_STAGING}")
+        where, prefix = ((self.folder, _STAGING) if self.existed
+                         else (self.folder.parent, f".{self.folder.name[:_NAME_KEPT]}{_STAGING}"))
         try:
             self.staging = _new_folder(where, prefix)
         except OSError as exc:
@@ -245,8 +260,19 @@ def _target_path(path, parameter: str) -> Path:
     return Path(path)
 
 
+@contextlib.contextmanager
+def _unusable(path: Path, parameter: str):
+    """Whatever else the file system says about ``path`` (a name too long, a loop of links) as a UsageError."""
+    try:
+        yield
+    except OSError as exc:
+        raise UsageError(f"'{path}' cannot be written ({exc.strerror})", parameter) from None
+
+
 def _check_folder_of(path: Path, parameter: str) -> None:
     folder = path.parent
+    if os.path.islink(folder) and not folder.exists():
+        raise UsageError(f"'{folder}' is a symbolic link that leads to no folder", parameter)
     if not folder.exists():
         below = next((p for p in folder.parents if p.exists()), None)
         if below is not None and not below.is_dir():

@@ -37,7 +37,7 @@ def input_ctype(input_ranges) -> str:
     """The one C type of every input: the smallest standard type holding the whole box."""
     ctype = smallest_input_ctype(input_ranges)
     if ctype is None:
-        raise UsageError("an input range does not fit any of " + ", ".join(INPUT_CTYPES), "plan input_ranges")
+        raise UsageError("its input_ranges fit none of " + ", ".join(INPUT_CTYPES), "plan")
     return ctype
 
 
