@@ -275,7 +275,7 @@ def test_a_file_size_limit_midway_leaves_the_folder_as_it_was(work, tmp_path_fac
 
 @pytest.mark.bad_input("demo")
 @pytest.mark.parametrize("case", ["a file", "an empty path", "a path below a file", "a missing parent folder",
-                                  "a new folder in a read-only folder"])
+                                  "a new folder in a read-only folder", "a read-only folder"])
 def test_demo_refuses_a_bad_outdir(work, case):
     prepare, out, fragment = FOLDER_TARGETS[{"a file": "the plan file"}.get(case, case)]
     if prepare:
@@ -298,6 +298,20 @@ def test_emit_replaces_an_earlier_estimator_and_leaves_other_files_alone(work):
     assert (work / "fw" / "README.txt").read_text() == "the user's own notes\n"
     verified = run_affix("verify", "fw", "--vectors", "1000", cwd=work)
     assert verified.returncode == 0, verified.stdout + verified.stderr
+
+
+@pytest.mark.bad_input("emit")
+def test_an_edited_manifest_cannot_make_emit_remove_other_files(work):
+    _earlier_emit(work, lang="c", name="old")
+    manifest = work / "fw" / "old.manifest.json"
+    data = json.loads(manifest.read_text())
+    data["files"]["c"] += ["notes.txt", "../plan.json"]
+    manifest.write_text(json.dumps(data))
+    (work / "fw" / "notes.txt").write_text("mine\n")
+    emit(random_plan(5, 3, 2), lang="c", name="probe", out_dir=work / "fw")
+    assert sorted(p.name for p in (work / "fw").iterdir()) == [
+        "notes.txt", "probe.c", "probe.h", "probe.manifest.json"]
+    assert (work / "plan.json").is_file()
 
 
 def test_emit_of_fewer_languages_removes_what_the_earlier_emit_wrote(work):

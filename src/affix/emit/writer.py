@@ -64,14 +64,17 @@ def emitted_before(out_dir: Path) -> set[str]:
 
     A folder holds one estimator (verify reads exactly one manifest), so an
     emit replaces all of these; a manifest too garbled to list its files
-    still goes, and its files are left alone.
+    still goes, and its files are left alone.  Only names an emit of that
+    estimator can have written count (NAME.*), so an edited manifest cannot
+    make an emit remove any other file of the folder.
     """
     names = set()
     for path in out_dir.glob(f"*{MANIFEST_SUFFIX}"):
         names.add(path.name)
+        stem = path.name[: -len(MANIFEST_SUFFIX)]
         try:
             listed = json.loads(path.read_text()).get("files", {}).values()
-            names.update(n for group in listed for n in group if isinstance(n, str))
+            names.update(n for group in listed for n in group if isinstance(n, str) and n.startswith(f"{stem}."))
         except (OSError, UnicodeDecodeError, ValueError, AttributeError, TypeError):
             continue
     return names
