@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import hashlib
+import os
 
 import numpy as np
 import pytest
@@ -41,7 +42,7 @@ def test_npy_columns_are_named_by_index(tmp_path):
     values = table(np.random.default_rng(2))
     path = tmp_path / "log.npy"
     np.save(path, values)
-    assert column_names(path) == ["0", "1", "2", "3"]
+    assert list(column_names(path)) == ["0", "1", "2", "3"]
     np.testing.assert_array_equal(whole(read_chunks(path, ["3", "1"], chunk_rows=33)), values[:, [3, 1]])
     np.save(path, values.astype(np.int16))
     np.testing.assert_array_equal(whole(read_chunks(path, ["0"], chunk_rows=33))[:, 0], values[:, 0].astype(np.int16))
@@ -70,28 +71,72 @@ def test_sha256_of_the_whole_file_after_a_pass(tmp_path):
     assert stream.rows_read == 1000 and stream.rows_dropped == 0
 
 
-@pytest.mark.parametrize("size_in_windows", [0, 1, 3, 3.5])
-def test_sha256_over_many_memory_map_windows(tmp_path, monkeypatch, size_in_windows):
-    import mmap
+@pytest.mark.parametrize("size_in_blocks", [0, 1, 3, 3.5])
+def test_sha256_over_many_read_blocks(tmp_path, monkeypatch, size_in_blocks):
+    from affix.intake import digest
+
+    # A small block, so a small file spans several; the reference is hashlib
+    # over the whole file's bytes (Python standard library).
+    monkeypatch.setattr(digest, "_BLOCK", 4096)
+    path = tmp_path / "data.bin"
+    path.write_bytes(np.random.default_rng(5).bytes(int(size_in_blocks * 4096)))
+    assert digest.FileDigest(path).hexdigest() == hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def test_a_failure_while_hashing_is_an_error_naming_the_file_not_the_hash_of_what_was_read(tmp_path, monkeypatch):
+    import errno
 
     from affix.intake import digest
 
-    # The smallest window mmap allows, so a small file spans several; the
-    # reference is hashlib over the whole file's bytes (Python standard library).
-    monkeypatch.setattr(digest, "_WINDOW", mmap.ALLOCATIONGRANULARITY)
-    path = tmp_path / "data.bin"
-    path.write_bytes(np.random.default_rng(5).bytes(int(size_in_windows * mmap.ALLOCATIONGRANULARITY)))
-    assert digest.FileDigest(path).hexdigest() == hashlib.sha256(path.read_bytes()).hexdigest()
+    path = tmp_path / "log.csv"
+    write_csv(path, ["a", "b", "c", "d"], table(np.random.default_rng(4)))
+    real_open = open
+
+    class FailingRead:
+        """The file as a disk with a bad sector shows it: the first read fails with EIO."""
+
+        def __init__(self, *args, **kwargs):
+            self._file = real_open(*args, **kwargs)
+
+        def __enter__(self):
+            return self
+
+        def __exit__(self, *exc):
+            self._file.close()
+
+        def readinto(self, buffer):
+            raise OSError(errno.EIO, os.strerror(errno.EIO))
+
+    monkeypatch.setattr(digest, "open", FailingRead, raising=False)
+    with pytest.raises(DataError, match=rf"{path}: cannot read the file to compute its SHA-256 \(Input/output error\)"):
+        whole(read_chunks(path, ["a", "b"]))
+
+
+def test_a_file_that_changes_during_the_pass_is_refused(tmp_path):
+    path = tmp_path / "log.csv"
+    write_csv(path, ["a", "b", "c", "d"], table(np.random.default_rng(4)))
+    stream = iter(read_chunks(path, ["a", "b"], chunk_rows=100))
+    next(stream)
+    with open(path, "a") as f:  # a logger still appending to the file
+        f.write("1,2,3,4\n")
+    with pytest.raises(DataError, match=rf"{path}: the file changed while it was read"):
+        list(stream)
 
 
 def test_invalid_rows_are_counted_and_named_or_dropped(tmp_path):
     path = tmp_path / "log.csv"
     path.write_text("a,b\n1,2\n3,nan\n5,6\n,8\n9,inf\n11,12\n")
-    with pytest.raises(DataError, match=r"row 2: 3 row\(s\) hold NaN, infinite or empty values, the first in column 'b'"):
+    # Line numbers as an editor shows them: the header is line 1.
+    with pytest.raises(DataError, match=r"log.csv, line 3: 3 row\(s\) hold NaN, infinite or empty values, the first in column 'b'"):
         whole(read_chunks(path, ["a", "b"], chunk_rows=2))
     stream = read_chunks(path, ["a", "b"], chunk_rows=2, drop_invalid=True)
     np.testing.assert_array_equal(whole(stream), [[1, 2], [5, 6], [11, 12]])
-    assert stream.rows_dropped == 3 and stream.first_invalid == (2, "b")
+    assert stream.rows_dropped == 3 and stream.first_invalid == ({"line": 3}, "b")
+    # The same rows in an array file, which has no lines: rows counted from 1.
+    array = tmp_path / "log.npy"
+    np.save(array, np.array([[1, 2], [3, np.nan], [5, 6], [np.nan, 8], [9, np.inf], [11, 12]]))
+    with pytest.raises(DataError, match=r"log.npy, row 2: 3 row\(s\) hold NaN"):
+        whole(read_chunks(array, ["0", "1"], chunk_rows=2))
 
 
 def test_a_non_numeric_cell_is_named_by_file_row_and_column(tmp_path):
@@ -99,7 +144,7 @@ def test_a_non_numeric_cell_is_named_by_file_row_and_column(tmp_path):
     rows = [f"{i},{i * 2}" for i in range(300)]
     rows[217] = "217,4x2"
     path.write_text("a,b\n" + "\n".join(rows) + "\n")
-    with pytest.raises(DataError, match=rf"{path}, row 218, column 'b': not a number: '4x2'"):
+    with pytest.raises(DataError, match=rf"{path}, line 219, column 'b': not a number: '4x2'"):
         whole(read_chunks(path, ["a", "b"], chunk_rows=100))
 
 
@@ -170,16 +215,56 @@ def test_rows_are_numbered_across_the_whole_file_when_split(tmp_path):
     lines[2500] = "2500,nan"
     lines[2700] = "2700,inf"
     path = write_lines(tmp_path / "log.csv", lines)
-    with pytest.raises(DataError, match=r"row 2501: 2 row\(s\) hold NaN"):
+    with pytest.raises(DataError, match=r"line 2502: 2 row\(s\) hold NaN"):
         file_moments(path, ["a", "b"], 5, chunk_rows=100, drop_invalid=False, workers=2)
     parts, dropped, _ = file_moments(path, ["a", "b"], 5, chunk_rows=100, drop_invalid=True, workers=2)
     assert dropped == 2 and sum(p.count for p in parts) == 2998
     lines[2800] = "2800,seven"
     path = write_lines(tmp_path / "log.csv", lines)
-    with pytest.raises(DataError, match=r"row 2801, column 'b': not a number: 'seven'"):
+    with pytest.raises(DataError, match=r"line 2802, column 'b': not a number: 'seven'"):
         file_moments(path, ["a", "b"], 5, chunk_rows=100, drop_invalid=True, workers=2)
 
 
 def write_lines(path, lines):
     path.write_text("a,b\n" + "\n".join(lines) + "\n")
     return path
+
+
+def line_start(path, line) -> int:
+    """Byte offset where an editor's line ``line`` (from 1) begins."""
+    with open(path, "rb") as f:
+        return sum(len(f.readline()) for _ in range(line - 1))
+
+
+# name: (the data lines after the header, the line to cut the file at for two workers, the one message)
+CSV_EDGES = {
+    "short first data row": ({0: "7"}, 1500, r"line 2: 1 row\(s\) hold NaN, infinite or empty values, the first in column 'b'"),
+    "blank line after the header": ({0: ""}, 1500, r"line 2: 1 row\(s\) hold NaN, infinite or empty values, the first in column 'a'"),
+    "short row at the split point": ({1498: "1498"}, 1500, r"line 1500: 1 row\(s\) hold NaN, .* column 'b'"),
+    "blank line at the split point": ({1498: ""}, 1500, r"line 1500: 1 row\(s\) hold NaN, .* column 'a'"),
+    "NUL bytes at the split point": ({1498: "\0\0\0\0"}, 1500, r"line 1500, column 'a': holds NUL bytes"),
+    "not UTF-8 at the split point": ({1498: "\udcff9,1"}, 1500, r"line 1500: not a text CSV file"),
+    "header followed by NUL bytes": (None, None, r"line 2: holds NUL bytes"),
+}
+
+
+@pytest.mark.bad_input("fit")
+@pytest.mark.parametrize("workers", [1, 2])
+@pytest.mark.parametrize("case", sorted(CSV_EDGES))
+def test_csv_edge_cases_give_one_message_whatever_the_worker_count(tmp_path, monkeypatch, case, workers):
+    from affix.fit import passes
+
+    edits, cut, message = CSV_EDGES[case]
+    path = tmp_path / "log.csv"
+    if edits is None:
+        path.write_bytes(b"a,b\n" + bytes(1 << 16))
+    else:
+        lines = [f"{i},{i % 17}" for i in range(3000)]
+        for index, text in edits.items():
+            lines[index] = text
+        path.write_bytes(("a,b\n" + "\n".join(lines) + "\n").encode("utf-8", "surrogateescape"))
+    if workers > 1 and cut is not None:  # cut the file for the two workers exactly at that line
+        offset = line_start(path, cut)
+        monkeypatch.setattr(passes, "partition", lambda p, parts: [(line_start(p, 2), offset), (offset, p.stat().st_size)])
+    with pytest.raises(DataError, match=rf"^{path}, {message}"):
+        passes.file_moments(path, ["a", "b"], 5, chunk_rows=256, drop_invalid=False, workers=workers)

@@ -65,18 +65,25 @@ class UsageError(AffixError):
 
 
 class DataError(AffixError):
-    """Calibration data cannot be used; names file, row and column when known."""
+    """Calibration data cannot be used; names file, place and column when known.
 
-    def __init__(self, message: str, path=None, row: int | None = None, column: str | None = None):
+    The place is a ``line`` of a text file as an editor numbers it (a CSV's
+    header is line 1), or a ``row`` of an array file (.npy, .npz, data in
+    memory), counted from 1, as such files have no lines.
+    """
+
+    def __init__(self, message: str, path=None, row: int | None = None, column: str | None = None, line: int | None = None):
         where = []
         if path is not None:
             where.append(str(path))
+        if line is not None:
+            where.append(f"line {line}")
         if row is not None:
             where.append(f"row {row}")
         if column is not None:
             where.append(f"column '{column}'")
         super().__init__(": ".join([", ".join(where), message]) if where else message)
-        self.path, self.row, self.column = path, row, column
+        self.path, self.row, self.column, self.line = path, row, column, line
 
 
 class WriteError(AffixError):

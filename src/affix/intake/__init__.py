@@ -8,16 +8,17 @@ Formats, chosen by the file suffix:
   like a .npy.
 * anything else -- CSV with a header line; columns are named by the header.
 
-Rows are counted from 1 (the CSV header not included) in every message.
+Messages name a CSV row by its line as an editor shows it (the header is
+line 1, the first data row line 2), and a row of an array file by its number
+counted from 1, as those have no lines.
 """
 from __future__ import annotations
 
-from collections import Counter
 from pathlib import Path
 
 import numpy as np
 
-from affix.errors import DataError
+from affix.errors import DataError, UsageError
 from affix.intake import array_format, csv_format
 from affix.intake.stream import ChunkStream
 
@@ -45,20 +46,19 @@ def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: b
     columns = list(columns)
     fmt = _format(path)
     available = fmt.column_names(path)
-    counts = Counter(available)
     for name in columns:
-        if name not in counts:
-            raise DataError(f"no column '{name}' (available: {', '.join(available)})", path)
-        if counts[name] > 1:
-            raise DataError(f"the header names column '{name}' {counts[name]} times, so it is ambiguous", path)
-    chunk_rows = fmt.CHUNK_ROWS if chunk_rows is None else chunk_rows
-    if chunk_rows < 1:
-        raise ValueError("chunk_rows must be positive")
+        count = available.count(name)
+        if not count:
+            raise DataError(f"no column '{name}' (available: {_listing(available)})", path)
+        if count > 1:
+            raise DataError(f"the header names column '{name}' {count} times, so it is ambiguous", path)
+    chunk_rows = _chunk_rows(chunk_rows, fmt.CHUNK_ROWS)
+    first_line = csv_format.FIRST_DATA_LINE if fmt is csv_format else None
     if part is None:
-        return ChunkStream(path, columns, fmt.raw_chunks(path, columns, chunk_rows), drop_invalid)
+        return ChunkStream(path, columns, fmt.raw_chunks(path, columns, chunk_rows), drop_invalid, first_line=first_line)
     first_row = csv_format.rows_before(path, part[0])
     raw = csv_format.raw_chunks(path, columns, chunk_rows, byte_range=part, rows_skipped=first_row)
-    return ChunkStream(path, columns, raw, drop_invalid, first_row=first_row, digest=False)
+    return ChunkStream(path, columns, raw, drop_invalid, first_row=first_row, digest=False, first_line=first_line)
 
 
 def splittable(path) -> bool:
@@ -82,9 +82,24 @@ def partition(path, parts: int) -> list:
 def from_array(values, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False) -> ChunkStream:
     """Rows already in memory (k, len(columns)) as the same kind of pass as a file gives."""
     values = np.asarray(values, dtype=np.float64)
-    chunk_rows = array_format.CHUNK_ROWS if chunk_rows is None else chunk_rows
+    chunk_rows = _chunk_rows(chunk_rows, array_format.CHUNK_ROWS)
     slices = (values[start : start + chunk_rows] for start in range(0, len(values), chunk_rows))
     return ChunkStream(None, columns, slices, drop_invalid)
+
+
+def _chunk_rows(chunk_rows, default) -> int:
+    if chunk_rows is None:
+        return default
+    if not (isinstance(chunk_rows, int) and chunk_rows >= 1):
+        raise UsageError(f"must be a whole number >= 1, got {chunk_rows!r}", option="chunk_rows")
+    return chunk_rows
+
+
+def _listing(names, shown: int = 20) -> str:
+    """Column names for a message: the first few, and how many in all (a header can name thousands)."""
+    if len(names) <= shown:
+        return ", ".join(names)
+    return ", ".join(names[:shown]) + f", ... ({len(names)} columns)"
 
 
 def _existing(path) -> Path:

@@ -2,15 +2,22 @@
 
 Columns of a 2-D array are named by their index: "0", "1", ...  In a .npz,
 each 1-D array is one column named by its key (``np.savez(path, Fx=..., b1=...)``);
-a .npz holding a single 2-D array is read like a .npy.
+a .npz holding a single 2-D array is read like a .npy.  These files have no
+lines, so messages name a row by its number, counted from 1.
 
 Both are streamed with plain sequential reads of a few rows at a time (no
 memory map, whose touched pages would count against the process), so memory
-stays constant whatever the file size.
+stays constant whatever the file size.  No size a header declares is taken
+on trust: the shape and dtype must account for exactly the bytes the file
+(or the archive member) holds before anything is allocated for them.
 """
 from __future__ import annotations
 
+import os
+import tokenize
 import zipfile
+import zlib
+from collections.abc import Sequence
 from contextlib import ExitStack
 
 import numpy as np
@@ -20,21 +27,26 @@ from affix.errors import DataError
 # Rows per read: the statistics' block size (affix.statistics.folds.BLOCK_ROWS),
 # so a block read stays in the CPU cache while the statistics work through it.
 CHUNK_ROWS = 1 << 14
+# ...and fewer for very wide rows, so that one read never needs much more memory than this.
+CHUNK_BYTES = 1 << 24
+# What reading a damaged archive member can raise.
+_READ_ERRORS = (OSError, EOFError, zipfile.BadZipFile, zlib.error)
 
 
-def column_names(path) -> list[str]:
+def column_names(path) -> Sequence[str]:
     with ExitStack() as stack:
-        return list(_open_columns(path, stack))
+        return _names(_open_sources(path, stack))
 
 
 def raw_chunks(path, columns, chunk_rows):
     with ExitStack() as stack:
-        sources = _open_columns(path, stack)
+        sources = _open_sources(path, stack)
         wanted = {}  # source -> [(column in the result, position in the stored rows)]
         for j, name in enumerate(columns):
-            source = sources[name]
-            wanted.setdefault(source, []).append((j, source.names.index(name)))
-        remaining = next(iter(sources.values())).rows
+            source, position = _find(sources, name)
+            wanted.setdefault(source, []).append((j, position))
+        chunk_rows = max(1, min(chunk_rows, CHUNK_BYTES // max(s.row_bytes for s in wanted)))
+        remaining = sources[0].rows
         while remaining:
             k = min(chunk_rows, remaining)
             remaining -= k
@@ -52,25 +64,65 @@ def raw_chunks(path, columns, chunk_rows):
             yield chunk
 
 
-class _Source:
-    """One stored array read row block by row block: its column names and rows."""
+class IndexNames(Sequence):
+    """The names "0", "1", ... of a 2-D array's columns, without building them
+    all: a header may declare millions of columns."""
 
-    def __init__(self, stream, path, key=None):
-        self.stream, self.path = stream, path
+    def __init__(self, width: int):
+        self.width = width
+
+    def __len__(self):
+        return self.width
+
+    def __getitem__(self, j):
+        if isinstance(j, slice):
+            return [str(k) for k in range(self.width)[j]]
+        return str(range(self.width)[j])
+
+    def __contains__(self, name):
+        return isinstance(name, str) and name.isdecimal() and name == str(int(name)) and int(name) < self.width
+
+    def index(self, name, *_):
+        if name not in self:
+            raise ValueError(f"{name!r} is not a column")
+        return int(name)
+
+    def count(self, name):
+        return int(name in self)
+
+
+class _Source:
+    """One stored array read row block by row block: its column names and rows.
+
+    ``size`` is the number of bytes the stream holds (the file's, or the
+    archive member's uncompressed size)."""
+
+    def __init__(self, stream, path, size, key=None):
+        self.stream, self.path, self.key = stream, path, key
         try:
             version = np.lib.format.read_magic(stream)
             read_header = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
             shape, fortran, dtype = read_header(stream)
-        except (ValueError, OSError) as exc:
-            raise DataError(f"not a valid NumPy array{_of(key)} ({exc})", path) from None
+            header_bytes = stream.tell()
+        except (ValueError, TypeError, SyntaxError, RecursionError, tokenize.TokenError, *_READ_ERRORS) as exc:
+            # numpy parses the header (at most 10000 characters) as a Python literal, retrying
+            # the tokens of an old one: any of these is a damaged header.
+            raise DataError(f"not a valid NumPy array{_of(key)} ({_one_line(exc)})", path) from None
         if dtype.hasobject or dtype.names or dtype.kind not in "biuf":
             raise DataError(f"array{_of(key)} has dtype {dtype}; expected plain numbers", path)
         if len(shape) == 1 and key is not None:
             self.width, self.names = 1, [key]
         elif len(shape) == 2:
-            self.width, self.names = shape[1], [str(j) for j in range(shape[1])]
+            self.width, self.names = shape[1], IndexNames(max(shape[1], 0))
         else:
             raise DataError(f"array{_of(key)} has shape {shape}; expected a 2-D array (rows, columns)", path)
+        declared = shape[0] * self.width * dtype.itemsize  # Python integers: no overflow
+        if min(shape) < 0 or declared != size - header_bytes:
+            raise DataError(
+                f"array{_of(key)} declares the shape {shape} of {dtype} ({declared} bytes), "
+                f"but {'its member' if key else 'the file'} holds {size - header_bytes} bytes after the header",
+                path,
+            )
         if fortran and self.width > 1:
             raise DataError(
                 f"array{_of(key)} is stored in Fortran order and cannot be read row by row; "
@@ -78,17 +130,21 @@ class _Source:
                 path,
             )
         self.dtype, self.rows = dtype, shape[0]
+        self.row_bytes = max(1, self.width * dtype.itemsize)
 
     def read(self, k) -> np.ndarray:
         """The next k rows, read straight into a fresh array (no intermediate bytes object)."""
         rows = np.empty((k, self.width), dtype=self.dtype)
         target = memoryview(rows.reshape(-1).view(np.uint8))
         filled = 0
-        while filled < len(target):
-            count = self.stream.readinto(target[filled:])
-            if not count:
-                raise DataError("the file ends before the array it declares", self.path)
-            filled += count
+        try:
+            while filled < len(target):
+                count = self.stream.readinto(target[filled:])
+                if not count:
+                    raise DataError(f"array{_of(self.key)} ends before the size its header declares", self.path)
+                filled += count
+        except _READ_ERRORS as exc:
+            raise DataError(f"cannot read array{_of(self.key)} ({_one_line(exc)})", self.path) from None
         return rows
 
 
@@ -96,33 +152,51 @@ def _of(key):
     return f" '{key}'" if key else ""
 
 
-def _open_columns(path, stack) -> dict:
-    """Column name -> the _Source that delivers it."""
+def _one_line(exc) -> str:
+    return " ".join(str(exc).split())
+
+
+def _names(sources) -> Sequence[str]:
+    return sources[0].names if len(sources) == 1 else [source.key for source in sources]
+
+
+def _find(sources, name):
+    """(the source that holds column ``name``, its position in that source's rows)."""
+    if len(sources) == 1:
+        return sources[0], sources[0].names.index(name)
+    return next(source for source in sources if source.key == name), 0
+
+
+def _open_sources(path, stack) -> list:
+    """The stored arrays: one 2-D array, or 1-D arrays, one per column."""
     if str(path).lower().endswith(".npz"):
         return _open_npz(path, stack)
-    source = _Source(stack.enter_context(open(path, "rb")), path)
-    return {name: source for name in source.names}
+    stream = stack.enter_context(open(path, "rb"))
+    return [_Source(stream, path, os.fstat(stream.fileno()).st_size)]
 
 
-def _open_npz(path, stack) -> dict:
+def _open_npz(path, stack) -> list:
     try:
         archive = stack.enter_context(zipfile.ZipFile(path))
-    except zipfile.BadZipFile:
-        raise DataError("not a valid .npz archive", path) from None
-    keys = [n[: -len(".npy")] for n in archive.namelist() if n.endswith(".npy")]
-    if not keys:
-        raise DataError("the .npz archive holds no arrays", path)
-    sources = {key: _Source(stack.enter_context(archive.open(key + ".npy")), path, key) for key in keys}
-    if len(keys) == 1:
-        (source,) = sources.values()
-        return {name: source for name in source.names}
-    for key, source in sources.items():
-        if source.names != [key]:
+        members = [info for info in archive.infolist() if info.filename.endswith(".npy")]
+        if not members:
+            raise DataError("the .npz archive holds no arrays", path)
+        sources = [
+            _Source(stack.enter_context(archive.open(info)), path, info.file_size, info.filename[: -len(".npy")])
+            for info in members
+        ]
+    except (zipfile.BadZipFile, NotImplementedError, RuntimeError, *_READ_ERRORS) as exc:
+        # RuntimeError: an encrypted member; NotImplementedError: an unknown compression.
+        raise DataError(f"not a valid .npz archive ({_one_line(exc)})", path) from None
+    if len(sources) == 1:
+        return sources
+    for source in sources:
+        if source.names != [source.key]:
             raise DataError(
-                f"array '{key}' is not 1-D; a .npz holds either one 2-D array or 1-D arrays, one per column",
+                f"array '{source.key}' is not 1-D; a .npz holds either one 2-D array or 1-D arrays, one per column",
                 path,
             )
-    lengths = {key: s.rows for key, s in sources.items()}
+    lengths = {source.key: source.rows for source in sources}
     if len(set(lengths.values())) > 1:
         detail = ", ".join(f"'{k}' {n}" for k, n in lengths.items())
         raise DataError(f"the column arrays differ in length ({detail})", path)

@@ -3,7 +3,7 @@
 Parsed in chunks by pandas' C parser with type inference (integer columns
 parse several times faster than when every cell is forced through the float
 parser).  A chunk whose column did not come out numeric is searched for the
-first offending cell, so the error names its row and column.  Empty cells and
+first offending cell, so the error names its line and column.  Empty cells and
 "nan" are missing values (reported, or dropped with drop_invalid, by the
 caller); so is a blank line (a row of empty cells) and a cell missing at the
 end of a short row.  Fields past the header's count are not read.  Cells must
@@ -12,6 +12,7 @@ parts can be parsed in parallel (see :func:`partition`).
 """
 from __future__ import annotations
 
+import codecs
 import csv
 import io
 import os
@@ -24,24 +25,41 @@ from affix.errors import DataError
 CHUNK_ROWS = 1 << 16  # pandas' per-chunk overhead is small against this many rows
 MISSING = ["", "nan", "NaN", "NAN"]
 _BLOCK = 1 << 20
-_FIELD_COUNT = re.compile(r"Expected (\d+) fields in line (\d+), saw (\d+)")
+_HEADER_LIMIT = 1 << 20
+FIRST_DATA_LINE = 2  # the header is line 1, and every row is one line
+NOT_UTF8 = "not a text CSV file (it is not UTF-8)"
+_SHOWN = 40  # characters of a bad cell quoted in a message
+NUL_BYTES = "holds NUL bytes, which no text CSV does (a log preallocated with zeros, or cut short by a crash?)"
+# Where pandas' C parser says which row it stopped at: counted from 0 in the text it was given.
+_PARSER_ROW = re.compile(r"starting at row (\d+)")
 
 
 def column_names(path) -> list[str]:
     try:
-        with open(path, newline="", encoding="utf-8-sig") as f:
-            header = next(csv.reader(f), None)
+        text = _header_line(path).decode("utf-8-sig")
+        header = next(csv.reader([text]), None)
     except UnicodeDecodeError:
-        raise DataError("not a text CSV file (it is not UTF-8)", path) from None
+        raise DataError(NOT_UTF8, path, line=1) from None
+    except csv.Error as exc:
+        raise DataError(f"not a CSV header ({exc})", path, line=1) from None
     if not header:
         raise DataError("empty file: expected a header line naming the columns", path)
+    if any("\0" in name for name in header):
+        raise DataError(NUL_BYTES, path, line=1)
     return [name.strip() for name in header]
 
 
 def data_start(path) -> int:
     """Byte offset of the first data line (just past the header line)."""
+    return len(_header_line(path))
+
+
+def _header_line(path) -> bytes:
     with open(path, "rb") as f:
-        return len(f.readline())
+        line = f.readline(_HEADER_LIMIT + 1)
+    if len(line) > _HEADER_LIMIT:
+        raise DataError(f"the first line is longer than {_HEADER_LIMIT} bytes, so it is no CSV header", path, line=1)
+    return line
 
 
 def partition(path, parts: int) -> list[tuple[int, int]]:
@@ -72,7 +90,8 @@ def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0):
     """Float64 arrays (k, len(columns)) in file order; NaN marks missing cells.
 
     ``byte_range`` (from :func:`partition`) reads only those lines, which
-    follow ``rows_skipped`` data rows; by default all data lines.
+    follow ``rows_skipped`` data rows; by default all data lines.  Errors name
+    the line as an editor numbers it.
     """
     import pandas as pd  # here, not at the top: only CSV needs it, and it is slow to import
 
@@ -81,29 +100,36 @@ def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0):
     used = sorted(set(positions))
     order = [used.index(p) for p in positions]
     start, end = byte_range or (data_start(path), os.path.getsize(path))
-    first_row = stream_first = 1 + rows_skipped  # rows count from 1, the header not included
+    line = first_line = FIRST_DATA_LINE + rows_skipped
     if start >= end:
-        return  # a header and no rows: the fit reports too few rows
+        return  # a header and no rows: the caller reports too few rows
     lines = io.BufferedReader(_ByteRange(path, start, end), _BLOCK)
     try:
         with lines, pd.read_csv(
             lines,
             header=None,
+            # Every row has the header's fields, so a short first row (or a
+            # blank line) is read as missing cells like any other, instead of
+            # setting a smaller field count for the rows after it.
+            names=range(len(header)),
             usecols=used,
             chunksize=chunk_rows,
             keep_default_na=False,
             na_values=MISSING,
-            skip_blank_lines=False,  # a blank line is a row of empty cells, and keeps row numbers right
+            skip_blank_lines=False,  # a blank line is a row of empty cells, and keeps line numbers right
             encoding="utf-8",
         ) as reader:
             for frame in reader:
-                values = _numeric(frame, path, first_row, [header[p] for p in used])
-                first_row += len(values)
+                values = _numeric(frame, path, line, [header[p] for p in used])
+                line += len(values)
                 yield values if order == list(range(len(order))) else values[:, order]
     except pd.errors.ParserError as exc:
-        raise DataError(_parser_message(exc, stream_first), path) from None
+        found = _PARSER_ROW.search(str(exc))
+        if found:
+            raise DataError(f"malformed CSV ({_one_line(exc)})", path, line=first_line + int(found.group(1))) from None
+        raise _unreadable(path, start, end, first_line) or DataError(f"malformed CSV ({_one_line(exc)})", path) from None
     except UnicodeDecodeError:
-        raise DataError("not a text CSV file (it is not UTF-8)", path) from None
+        raise _unreadable(path, start, end, first_line) or DataError(NOT_UTF8, path) from None
 
 
 class _ByteRange(io.RawIOBase):
@@ -128,7 +154,7 @@ class _ByteRange(io.RawIOBase):
         super().close()
 
 
-def _numeric(frame, path, first_row, names) -> np.ndarray:
+def _numeric(frame, path, first_line, names) -> np.ndarray:
     import pandas as pd
 
     for position, name in enumerate(names):
@@ -139,14 +165,40 @@ def _numeric(frame, path, first_row, names) -> np.ndarray:
         bad = np.ones(len(column), bool) if converted is None else (converted.isna() & column.notna()).to_numpy()
         if bad.any():
             i = int(np.argmax(bad))
-            raise DataError(f"not a number: {str(column.iloc[i])!r}", path, row=first_row + i, column=name)
+            cell = str(column.iloc[i])
+            message = NUL_BYTES if "\0" in cell else f"not a number: {_shown(cell)}"
+            raise DataError(message, path, line=first_line + i, column=name)
         frame.isetitem(position, converted)
     return frame.to_numpy(dtype=np.float64)
 
 
-def _parser_message(exc, first_row) -> str:
-    found = _FIELD_COUNT.search(str(exc))
-    if found:
-        expected, line, saw = found.groups()
-        return f"row {first_row + int(line) - 1}: has {saw} fields where the first row has {expected}"
-    return f"malformed CSV ({' '.join(str(exc).split())})"
+def _unreadable(path, start, end, first_line) -> DataError | None:
+    """The error for the first line in bytes [start, end) that holds a NUL byte
+    or is not UTF-8, if there is one: what pandas' own errors cannot place."""
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    line = first_line
+    with _ByteRange(path, start, end) as source:
+        while block := source.read(_BLOCK):
+            nul = block.find(b"\0")
+            pending = len(decoder.getstate()[0])  # bytes of a character cut by the last block
+            try:
+                decoder.decode(block if nul < 0 else block[:nul])
+            except UnicodeDecodeError as exc:
+                return DataError(NOT_UTF8, path, line=line + block.count(b"\n", 0, max(exc.start - pending, 0)))
+            if nul >= 0:
+                return DataError(NUL_BYTES, path, line=line + block.count(b"\n", 0, nul))
+            line += block.count(b"\n")
+    try:
+        decoder.decode(b"", final=True)
+    except UnicodeDecodeError:
+        return DataError(NOT_UTF8, path, line=line)
+    return None
+
+
+def _shown(cell: str) -> str:
+    """A cell as the message quotes it: repr, and cut short (a runaway cell can be megabytes)."""
+    return repr(cell) if len(cell) <= _SHOWN else repr(cell[:_SHOWN]) + f"... ({len(cell)} characters)"
+
+
+def _one_line(exc) -> str:
+    return " ".join(str(exc).split())
