@@ -271,3 +271,44 @@ def test_model_carries_the_input_moments_the_quantizer_needs():
     np.testing.assert_allclose(model.input_covariance, np.cov(y, rowvar=False), rtol=1e-12)  # numpy's 1/(n-1)
     again = affix.Model.from_dict(model.to_dict())
     np.testing.assert_array_equal(again.input_covariance, model.input_covariance)
+
+
+@pytest.mark.bad_input("fit")
+def test_a_spread_past_double_precision_is_refused_naming_the_column():
+    # Every value is screened below 1e150, but over some 10^8 rows of such
+    # values the sum of squared deviations passes float64's 1.8e308: moments
+    # of that size stand in for a file of that size.
+    from affix.errors import DataError
+    from affix.fit.estimator import _check_rows
+    from affix.statistics import Moments
+
+    huge = Moments(10**9, np.zeros(3), np.diag([1.0, np.inf, 1.0]))
+    with pytest.raises(DataError, match=r"^log.csv, column 'y2': the sum of squared deviations overflows"):
+        _check_rows(huge, ["y1", "y2"], ["y1", "y2", "x"], "log.csv")
+
+
+@pytest.mark.bad_input("fit")
+@pytest.mark.parametrize("folds", [1, -1, 10_001, 10**12, 2.5, True])
+def test_fold_counts_outside_2_to_max_folds_are_refused_before_any_work(folds):
+    from affix.errors import UsageError
+
+    y = np.random.default_rng(1).normal(size=(50, 2))
+    with pytest.raises(UsageError, match=r"^folds: must be 0 \(no cross-validation\) or a whole number from 2 to 10000"):
+        affix.fit((y, y.sum(axis=1)), folds=folds)
+
+
+def test_many_folds_score_like_sklearn_refitting_each_fold():
+    # 300 folds, past the int8 fold labels of old; the reference refits scikit-learn on each training split.
+    from sklearn.linear_model import LinearRegression
+
+    rng = np.random.default_rng(12)
+    y = rng.normal(size=(900, 3))
+    x = y @ rng.normal(size=(3, 2)) + rng.normal(size=(900, 2))
+    model = affix.fit((y, x), folds=300)
+    labels = fold_of(0, len(y), 300)
+    assert labels.max() == 299
+    errors = np.zeros_like(x)
+    for f in range(300):
+        held = labels == f
+        errors[held] = x[held] - LinearRegression().fit(y[~held], x[~held]).predict(y[held])
+    np.testing.assert_allclose(model.cv_rms, np.sqrt((errors**2).mean(axis=0)), rtol=1e-10)

@@ -2,8 +2,9 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
-from affix.statistics import Moments, accumulate, chunk_moments, fold_of, merge_all, merge_folds
+from affix.statistics import Moments, accumulate, fold_of, merge_all, merge_folds
 
 
 def sample(rng, rows=10_000):
@@ -41,10 +42,10 @@ def test_pairwise_merge_of_shuffled_chunks_equals_one_pass():
 def test_fold_parts_do_not_depend_on_chunking_or_merge_order():
     rng = np.random.default_rng(3)
     rows = sample(rng)
-    whole = chunk_moments(rows, 0, 5)
+    whole = accumulate([rows], 4, 5)
     cuts = np.sort(rng.choice(np.arange(1, len(rows)), size=25, replace=False))
     starts = np.concatenate([[0], cuts])
-    pieces = [chunk_moments(chunk, start, 5) for chunk, start in zip(np.split(rows, cuts), starts)]
+    pieces = [accumulate([chunk], 4, 5, first_row=start) for chunk, start in zip(np.split(rows, cuts), starts)]
     rng.shuffle(pieces)
     merged = pieces[0]
     for piece in pieces[1:]:
@@ -61,8 +62,9 @@ def test_fold_parts_do_not_depend_on_chunking_or_merge_order():
 def test_accumulate_over_a_stream_equals_the_whole():
     rows = sample(np.random.default_rng(4), rows=1234)
     parts = accumulate((rows[i : i + 100] for i in range(0, len(rows), 100)), 4, 3)
-    for a, b in zip(parts, chunk_moments(rows, 0, 3)):
-        assert_same(a, b)
+    labels = fold_of(0, len(rows), 3)
+    for f, part in enumerate(parts):
+        assert_same(part, Moments.of(rows[labels == f]))  # numpy's mean and product over exactly the fold's rows
 
 
 def test_folds_are_balanced_in_every_prefix_and_depend_only_on_the_row_index():
@@ -73,3 +75,32 @@ def test_folds_are_balanced_in_every_prefix_and_depend_only_on_the_row_index():
     np.testing.assert_array_equal(fold_of(51_000, 1_000, 7), labels[51_000:52_000])
     # Not a round-robin: a rig cycling through 7 load cases still spreads over all folds.
     assert len(set(labels[::7][:200])) == 7
+
+
+@pytest.mark.parametrize("folds", [127, 128, 129, 300, 5000])
+def test_many_folds_get_every_label_and_balanced_sizes(folds):
+    # int8 labels wrapped above 127; the dealing pattern must also stay small for large counts.
+    rows = 3 * folds + 17
+    labels = fold_of(0, rows, folds)
+    assert labels.min() == 0 and labels.max() == folds - 1
+    sizes = np.bincount(labels, minlength=folds)
+    assert len(sizes) == folds and sizes.max() - sizes.min() <= 1
+    np.testing.assert_array_equal(fold_of(folds + 5, 2 * folds, folds), labels[folds + 5 : 3 * folds + 5])
+
+
+def test_moments_per_fold_for_many_folds_match_numpy():
+    rng = np.random.default_rng(5)
+    rows = sample(rng, rows=1000)
+    parts = accumulate((rows[i : i + 64] for i in range(0, len(rows), 64)), 4, 300)
+    labels = fold_of(0, len(rows), 300)
+    for f in (0, 127, 128, 255, 299):
+        assert_same(parts[f], Moments.of(rows[labels == f]))
+    assert sum(p.count for p in parts) == len(rows)
+
+
+def test_the_fold_pattern_of_the_largest_fold_count_is_small():
+    from affix.statistics import MAX_FOLDS
+    from affix.statistics.folds import _pattern, period
+
+    assert _pattern(MAX_FOLDS, 1).nbytes <= 2 * 4 * (1 << 20) + 8 * MAX_FOLDS
+    assert period(MAX_FOLDS) % MAX_FOLDS == 0 and period(5) == 5 * 8192

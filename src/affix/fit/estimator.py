@@ -7,6 +7,7 @@ those small matrices.
 from __future__ import annotations
 
 import math
+import numbers
 import os
 import warnings
 from collections.abc import Mapping
@@ -20,7 +21,7 @@ from affix.fit.passes import file_moments, stream_moments
 from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
 from affix.intake import from_array
 from affix.model import Model
-from affix.statistics import merge_all
+from affix.statistics import MAX_FOLDS, merge_all
 
 
 class CollinearityWarning(UserWarning):
@@ -58,8 +59,11 @@ def fit(
         return adopt(data, inputs, outputs)
     if not (isinstance(ridge, (int, float)) and math.isfinite(ridge) and ridge >= 0):
         raise UsageError(f"must be a finite number >= 0, got {ridge!r}", parameter="ridge")
-    if folds == 1 or folds < 0:
-        raise UsageError(f"must be 0 (no cross-validation) or at least 2, got {folds}", parameter="folds")
+    if isinstance(folds, bool) or not isinstance(folds, numbers.Integral) or not (folds == 0 or 2 <= folds <= MAX_FOLDS):
+        raise UsageError(
+            f"must be 0 (no cross-validation) or a whole number from 2 to {MAX_FOLDS}, got {folds!r}", parameter="folds"
+        )
+    folds = int(folds)
     inputs, outputs, path, values = _open(data, inputs, outputs)
     m, width = len(inputs), len(inputs) + len(outputs)
     if path is not None:
@@ -70,7 +74,7 @@ def fit(
         stream = from_array(values, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
         parts, dropped, sha256 = stream_moments(stream, width, folds), stream.rows_dropped, None
     moments = merge_all(parts, width)
-    _check_rows(moments, inputs, path)
+    _check_rows(moments, inputs, inputs + outputs, path)
     r = correlation(moments, m)
     condition = conditioning.condition_number(r)
     solution = _solve(moments, m, ridge, r, condition, inputs)
@@ -145,10 +149,15 @@ def _check_names(inputs, outputs):
     return inputs, outputs
 
 
-def _check_rows(moments, inputs, path):
+def _check_rows(moments, inputs, columns, path):
     m, n = len(inputs), moments.count
     if n < m + 2:
         raise DataError(f"only {n} usable row(s); fitting {m} input(s) needs at least {m + 2}", path)
+    for name, finite in zip(columns, np.isfinite(np.diag(moments.scatter))):
+        if not finite:  # each value is below LARGEST_VALUE, but the spread of very many is not
+            raise DataError(
+                "the sum of squared deviations overflows double precision; rescale the column", path, column=name
+            )
     spread = np.sqrt(np.diag(moments.scatter)[:m] / (n - 1))
     for name, mean, sd in zip(inputs, moments.mean[:m], spread):
         if sd <= 8 * np.finfo(float).eps * abs(mean):
@@ -173,7 +182,10 @@ def _solve(moments, m, ridge, r, condition, inputs):
 
 
 def _cross_validate(parts, m, ridge):
-    smallest = min(sum(p.count for p in parts) - p.count for p in parts)
+    total = sum(p.count for p in parts)
+    if len(parts) > total:
+        raise UsageError(f"{len(parts)} folds need at least as many usable rows; the data have {total}", parameter="folds")
+    smallest = total - max(p.count for p in parts)
     if smallest < m + 2:
         raise FitError(
             f"too few rows for {len(parts)}-fold cross-validation: a training split would hold only "

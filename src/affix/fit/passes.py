@@ -9,9 +9,12 @@ the whole file runs in a thread of the parent while it prepares the workers.
 from __future__ import annotations
 
 import os
+import signal
+import traceback
 
 from threadpoolctl import threadpool_limits
 
+from affix.errors import AffixError
 from affix.intake import partition, read_chunks, splittable
 from affix.intake.digest import FileDigest
 from affix.intake.stream import check_invalid
@@ -36,12 +39,9 @@ def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None
     # workers, rather than later against them; it must be done before they fork.
     digest = FileDigest(path)
     ranges = partition(path, workers)
-    sha256 = digest.hexdigest()
-    from concurrent.futures import ProcessPoolExecutor  # here: a serial pass need not load multiprocessing
-
-    with ProcessPoolExecutor(len(ranges)) as pool:
-        jobs = [pool.submit(_part_moments, path, columns, folds, chunk_rows, part) for part in ranges]
-        results = [job.result() for job in jobs]
+    digest.wait()
+    results = _in_workers([(path, columns, folds, chunk_rows, part) for part in ranges])
+    sha256 = digest.hexdigest()  # after the workers' reads: it checks that the file did not change meanwhile
     parts, dropped, first_invalid = results[0]
     for more, count, first in results[1:]:
         parts, dropped = merge_folds(parts, more), dropped + count
@@ -49,6 +49,61 @@ def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None
     if not drop_invalid:
         check_invalid(path, dropped, first_invalid)
     return parts, dropped, sha256
+
+
+def _in_workers(jobs) -> list:
+    """_part_moments(*job) for each job, in one forked process each; the
+    results in job order, so the first error raised is the first in the file,
+    as in one pass.
+
+    A terminal sends Ctrl-C's SIGINT to every process of its group: workers
+    ignore it and leave it to this process, whose KeyboardInterrupt (like any
+    error) ends them all before it goes on, so none prints a traceback or
+    outlives the command.  SIGINT stays blocked here from before the forks
+    until every worker has started, so none is caught half set up and the
+    interrupt is taken once there are workers to end.
+    """
+    import multiprocessing  # here: a serial pass need not load it
+
+    context = multiprocessing.get_context("fork")  # the workers share the pandas this process loaded
+    workers = []
+    unblocked = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+    try:
+        for job in jobs:
+            receive, send = context.Pipe(duplex=False)
+            process = context.Process(target=_worker, args=(send, job), daemon=True)
+            process.start()
+            send.close()
+            workers.append((process, receive))
+        signal.pthread_sigmask(signal.SIG_SETMASK, unblocked)
+        results = []
+        for process, receive in workers:
+            try:
+                succeeded, value = receive.recv()
+            except EOFError:  # killed, by the out-of-memory killer say: no user error, but no hang either
+                process.join()
+                raise RuntimeError(f"a worker process ended with status {process.exitcode} before its result") from None
+            if not succeeded:
+                raise value
+            results.append(value)
+        return results
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, unblocked)
+        for process, receive in workers:
+            process.terminate()  # nothing to do for those that are done
+            process.join()
+            receive.close()
+
+
+def _worker(send, job):
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
+    try:
+        send.send((True, _part_moments(*job)))
+    except AffixError as exc:
+        send.send((False, exc))
+    except BaseException as exc:  # a bug: its traceback goes to the parent, whose stderr the user sees
+        send.send((False, RuntimeError("in a worker process:\n" + "".join(traceback.format_exception(exc)))))
 
 
 def _part_moments(path, columns, folds, chunk_rows, part):

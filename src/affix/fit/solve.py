@@ -18,7 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from affix.statistics import Moments, merge_all
+from affix.statistics import Moments
 
 
 @dataclass(frozen=True, eq=False)
@@ -70,9 +70,13 @@ def cross_validated_rms(parts: list[Moments], n_inputs: int, ridge: float) -> np
     score the held-out fold analytically from its own moments; RMS over all
     held-out rows (1/n, a mean of squared prediction errors)."""
     width = parts[0].width
+    # The other folds of fold f are those before it and those after it: the
+    # running merges from either end give every training set in O(k) merges.
+    before, after = [Moments.empty(width)], [Moments.empty(width)]
+    for early, late in zip(parts[:-1], parts[:0:-1]):
+        before.append(before[-1].merge(early))
+        after.append(after[-1].merge(late))
     squared = np.zeros(width - n_inputs)
-    for f, held_out in enumerate(parts):
-        rest = merge_all(parts[:f] + parts[f + 1 :], width)
-        squared += np.diag(residual_scatter(held_out, solve(rest, n_inputs, ridge)))
+    for held_out, early, late in zip(parts, before, reversed(after)):
+        squared += np.diag(residual_scatter(held_out, solve(early.merge(late), n_inputs, ridge)))
     return np.sqrt(np.clip(squared, 0.0, None) / sum(p.count for p in parts))
-

@@ -1,5 +1,5 @@
 """Statistics: mergeable sufficient statistics of calibration data (one pass, any chunk order)."""
-from affix.statistics.folds import FOLD_SEED, accumulate, chunk_moments, fold_of, merge_folds
+from affix.statistics.folds import FOLD_SEED, MAX_FOLDS, accumulate, fold_of, merge_folds
 from affix.statistics.moments import Moments, merge_all
 
-__all__ = ["FOLD_SEED", "Moments", "accumulate", "chunk_moments", "fold_of", "merge_all", "merge_folds"]
+__all__ = ["FOLD_SEED", "MAX_FOLDS", "Moments", "accumulate", "fold_of", "merge_all", "merge_folds"]
