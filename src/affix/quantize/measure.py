@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from affix.arithmetic import box_bounds
+from affix.errors import DataError
 from affix.quantize.box import corners
 
 
@@ -28,7 +29,10 @@ class _Deviation:
         self.largest = np.maximum(self.largest, np.abs(deviation).max(axis=0, initial=0.0))
 
     def summary(self) -> dict:
-        rms = np.sqrt(self.square / self.rows) if self.rows else np.full(len(self.square), np.nan)
+        """The figures; with no rows (every calibration row outside the box) there are none: None, not NaN."""
+        if not self.rows:
+            return {"rows": 0, "rms_deviation": None, "max_deviation": None}
+        rms = np.sqrt(self.square / self.rows)
         return {"rows": self.rows, "rms_deviation": rms.tolist(), "max_deviation": self.largest.tolist()}
 
 
@@ -56,6 +60,8 @@ def measure_calibration(estimator, model, input_scale, lsb, box, chunks) -> dict
             outside += int((~inside).sum())
             chunk, counts = chunk[inside], counts[inside]
         tally.add(estimator.evaluate(counts.astype(np.int64)) * lsb - model.predict(chunk))
+    if not tally.rows + outside:
+        raise DataError("the calibration data hold no usable rows to measure on", getattr(chunks, "path", None))
     return {**tally.summary(), "rows_outside_box": outside}
 
 

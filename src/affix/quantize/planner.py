@@ -6,7 +6,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from affix.arithmetic import OUTPUT_CTYPES, ROUNDINGS
+from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, ROUNDINGS
 from affix.errors import UsageError, parameter
 from affix.plan import Plan
 from affix.quantize.analysis import Problem
@@ -62,10 +62,13 @@ def plan_fixed_point(
     scale = np.array([1.0 if q is None else q for q in input_lsb])
     physical = np.array([q is not None for q in input_lsb])
     gain = model.gain * scale  # per count
-    largest = float(np.max(np.abs(gain) @ reach(box) + np.abs(model.offset)))
+    output_reach = np.abs(gain) @ reach(box) + np.abs(model.offset)
+    largest = float(np.max(output_reach))
     if not largest < _LARGEST_OUTPUT:
         raise UsageError(f"the model's outputs reach {largest:.3g} over this box; the error analysis "
                          f"squares them in double precision, so they must stay below {_LARGEST_OUTPUT:g}", "input_ranges")
+    _check_output_lsb(model.outputs, output_reach, lsb)
+    _check_input_lsb(model, input_lsb, gain)
     moments, source = augmented_moments(model, box, scale)
     float_rms = model.cv_rms if model.cv_rms is not None else model.rms
     problem = Problem(
@@ -93,6 +96,47 @@ def plan_fixed_point(
 def _check_choice(value, allowed, option):
     if value is not None and value not in allowed:
         raise UsageError(f"must be one of {', '.join(map(str, allowed))}, not {value!r}", option)
+
+
+def _check_output_lsb(outputs, output_reach, lsb):
+    """An lsb so fine that the output's reach over the box is more counts than
+    the widest output type holds can only fail; refused here, before the
+    design divides by it (a subnormal lsb would overflow there)."""
+    widest, (_, top) = max(OUTPUT_CTYPES.items(), key=lambda item: item[1][1])  # int32_t
+    for name, span, step in zip(outputs, output_reach, lsb):
+        if step is not None and float(span) > top * step:
+            raise UsageError(
+                f"lsb of '{name}' ({step:g}) is too fine: the output reaches {float(span):.6g} over the box, "
+                f"which in counts of this lsb is beyond {widest}, the widest output type",
+                "output_lsb",
+            )
+
+
+def _check_input_lsb(model, input_lsb, gain_per_count):
+    """An input lsb must leave every gain per count a normal double (one that
+    underflows would silently drop the input), and the model's calibration
+    inputs, in counts, numbers an input type can hold: far beyond, they are no
+    counts an MCU reads, and their moments overflow double precision."""
+    scaled = np.array([step is not None for step in input_lsb])
+    vanishing = scaled & ((model.gain != 0) & ~(np.abs(gain_per_count) >= np.finfo(float).tiny)).any(axis=0)
+    for j in np.flatnonzero(vanishing):
+        raise UsageError(
+            f"input lsb of '{model.inputs[j]}' ({input_lsb[j]:g}) is too fine: its gains per count "
+            "underflow double precision",
+            "input_lsb",
+        )
+    if model.input_mean is None or model.input_covariance is None:
+        return
+    widest, (_, top) = max(INPUT_CTYPES.items(), key=lambda item: item[1][1])  # uint32_t
+    spread = np.sqrt(np.clip(np.diag(model.input_covariance), 0.0, None))
+    for name, mean, sd, step in zip(model.inputs, model.input_mean, spread, input_lsb):
+        rms = float(np.hypot(mean, sd))  # of the calibration inputs, physical units; hypot cannot overflow
+        if step is not None and rms > top * step:
+            raise UsageError(
+                f"input lsb of '{name}' ({step:g}) makes the model's calibration inputs (RMS {rms:.6g}) "
+                f"more than {top} counts, beyond {widest}, the widest input type",
+                "input_lsb",
+            )
 
 
 def _budget(model, budget, budget_rms, float_rms, *, default):

@@ -167,7 +167,7 @@ def table(plan) -> str:
             _g(plan.float_rms[i] if plan.float_rms else None),
             _g(plan.predicted_total_rms[i] if plan.predicted_total_rms else None),
             _g(plan.predicted_rms_deviation[i]),
-            _g(calibration["rms_deviation"][i] if calibration else None),
+            _g(calibration["rms_deviation"][i] if calibration and calibration["rows"] else None),
             _g(plan.worst_case_deviation[i]),
             _g(budget["limits"][i] if budget else None),
             "-" if margin is None else f"{margin:+.3g}",
@@ -204,7 +204,7 @@ def _budget_line(budget) -> str:
 
 
 def _g(value) -> str:
-    return "-" if value is None or (isinstance(value, float) and math.isnan(value)) else f"{value:.4g}"
+    return "-" if value is None else f"{value:.4g}"
 
 
 def _columns(rows) -> list[str]:
