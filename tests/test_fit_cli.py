@@ -1,8 +1,13 @@
-"""`affix fit` as a user runs it, including every kind of bad input."""
+"""`affix fit` as a user runs it (its bad inputs are in test_bad_input_data.py)."""
 from __future__ import annotations
 
 import json
+import os
 import re
+import signal
+import subprocess
+import sys
+import time
 
 import numpy as np
 import pytest
@@ -63,65 +68,6 @@ def test_drop_invalid_says_how_many_rows_it_left_out(tmp_path):
     assert Model.load(out).dropped_rows == 2 and Model.load(out).n_samples == 58
 
 
-def csv_with(tmp_path, edits):
-    """The good log with some lines (0 = header) replaced."""
-    text = good_csv(tmp_path).read_text().splitlines()
-    for index, line in edits.items():
-        text[index] = line
-    return write(tmp_path / "edited.csv", "\n".join(text) + "\n")
-
-
-BAD_INPUTS = {
-    # name: (make data file, extra arguments, what the one line must say)
-    "missing file": (lambda p: p / "absent.csv", [], r"absent.csv: no such file"),
-    "missing column": (good_csv, ["--inputs", "b1,b9"], r"no column 'b9' \(available: b1, b2, b3, Fx, Fz\)"),
-    "non-numeric cell": (lambda p: csv_with(p, {7: "1,2,x3,4,5"}), [], r"edited.csv, row 7, column 'b3': not a number: 'x3'"),
-    "nan and inf": (
-        lambda p: csv_with(p, {4: "1,2,3,nan,5", 8: "1,2,inf,4,5"}),
-        [],
-        r"row 4: 2 row\(s\) hold NaN, infinite or empty values, the first in column 'Fx'; .*--drop-invalid",
-    ),
-    "too few rows": (lambda p: write(p / "short.csv", "b1,b2,b3,Fx,Fz\n1,2,3,4,5\n2,3,1,5,6\n3,1,2,6,7\n"), [], r"only 3 usable row\(s\); fitting 3 input\(s\) needs at least 5"),
-    "header only": (lambda p: write(p / "empty.csv", "b1,b2,b3,Fx,Fz\n"), [], r"only 0 usable row\(s\)"),
-    "constant input": (
-        lambda p: write(p / "flat.csv", "b1,b2,b3,Fx,Fz\n" + "".join(f"{i},{i * i % 7},4,{i},{-i}\n" for i in range(20))),
-        [],
-        r"flat.csv, column 'b3': input column is constant \(4 in every row\)",
-    ),
-    "duplicate header name": (lambda p: write(p / "dup.csv", "b1,b2,b1,Fx,Fz\n" + "1,2,3,4,5\n" * 9), [], r"names column 'b1' 2 times"),
-    "input listed twice": (good_csv, ["--inputs", "b1,b2,b1"], r"column 'b1' is listed twice in the inputs"),
-    "output also an input": (good_csv, ["--outputs", "Fx,b2"], r"column 'b2' is both an input and an output"),
-    "singular inputs": (
-        lambda p: write(p / "twin.csv", "b1,b2,b3,Fx,Fz\n" + "".join(f"{i},{2 * i},{i * i % 5},{i},{-i}\n" for i in range(20))),
-        [],
-        r"inputs b1, b2 are nearly collinear .* pass --ridge=1e-05",
-    ),
-    "bad folds": (good_csv, ["--folds", "1"], r"folds: must be 0 \(no cross-validation\) or at least 2"),
-    "negative ridge": (good_csv, ["--ridge", "-0.5"], r"ridge: must be a finite number >= 0"),
-    "npz of unequal columns": (
-        lambda p: (np.savez(p / "cols.npz", b1=np.ones(9), b2=np.ones(9), b3=np.ones(8), Fx=np.ones(9), Fz=np.ones(9)), p / "cols.npz")[1],
-        [],
-        r"the column arrays differ in length",
-    ),
-}
-
-
-@pytest.mark.parametrize("case", sorted(BAD_INPUTS))
-def test_bad_input_is_one_line_exit_2_and_no_file(tmp_path, case):
-    make, extra, expected = BAD_INPUTS[case]
-    data = make(tmp_path)
-    out = tmp_path / "model.json"
-    options = {"--inputs": "b1,b2,b3", "--outputs": "Fx,Fz"}
-    options.update(dict(zip(extra[::2], extra[1::2])))
-    result = run_affix("fit", data, *[a for kv in options.items() for a in kv], "--out", out)
-    assert result.returncode == 2, result.stderr
-    assert "Traceback" not in result.stderr and result.stdout == ""
-    lines = result.stderr.splitlines()
-    assert len(lines) == 1 and lines[0].startswith("affix: error: "), result.stderr
-    assert re.search(expected, lines[0]), lines[0]
-    assert not out.exists() and not list(tmp_path.glob(".model.json*"))
-
-
 def test_collinear_inputs_are_one_warning_line_and_the_fit_goes_ahead(tmp_path):
     from statsmodels.datasets import longley  # NIST's Longley data, bundled with statsmodels
 
@@ -134,3 +80,77 @@ def test_collinear_inputs_are_one_warning_line_and_the_fit_goes_ahead(tmp_path):
     # Longley's series that all trend with the year carry its famous collinearity (common practice).
     assert re.match(r"affix: warning: inputs .*GNP, .*POP, YEAR are nearly collinear \(condition number ", line), line
     assert Model.load(out).condition_number > 1e3
+
+
+def big_csv(path, megabytes):
+    """A CSV past PARALLEL_MIN_BYTES, so the fit takes the multi-process path: a block of rows, repeated."""
+    rng = np.random.default_rng(7)
+    y = rng.integers(-30000, 30000, size=(20_000, 6))
+    x = y @ rng.normal(size=(6, 2)) * 1e-3 + rng.normal(size=(20_000, 2))
+    block = "".join(",".join(map(str, a)) + "," + ",".join(f"{v:.6f}" for v in b) + "\n" for a, b in zip(y.tolist(), x.tolist()))
+    with open(path, "w") as f:
+        f.write("y1,y2,y3,y4,y5,y6,x1,x2\n")
+        for _ in range(megabytes * (1 << 20) // len(block) + 1):
+            f.write(block)
+    return path
+
+
+def children(pid) -> list[int]:
+    found = []
+    for task in os.listdir(f"/proc/{pid}/task"):
+        with open(f"/proc/{pid}/task/{task}/children") as f:
+            found += [int(c) for c in f.read().split()]
+    return found
+
+
+def has_open(pid, path) -> bool:
+    for fd in os.listdir(f"/proc/{pid}/fd"):
+        try:
+            if os.readlink(f"/proc/{pid}/fd/{fd}") == str(path):
+                return True
+        except FileNotFoundError:
+            pass
+    return False
+
+
+def group_alive(pgid) -> bool:
+    try:
+        os.killpg(pgid, 0)
+    except ProcessLookupError:
+        return False
+    return True
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(
+    "moment, delay",
+    [("file opened", 0.0), ("workers started", 0.0), ("workers started", 0.2), ("workers started", 0.5)],
+)
+def test_ctrl_c_during_a_parallel_fit_ends_everything_in_one_line(tmp_path_factory, moment, delay):
+    from affix.fit.passes import PARALLEL_MIN_BYTES
+
+    folder = tmp_path_factory.mktemp("interrupted")
+    data = tmp_path_factory.getbasetemp() / "big.csv"
+    if not data.exists():
+        big_csv(data, 3 * PARALLEL_MIN_BYTES >> 20)
+    assert data.stat().st_size >= PARALLEL_MIN_BYTES
+    # Its own process group, as a shell gives a foreground job; Ctrl-C is SIGINT to the whole group.
+    command = [sys.executable, "-m", "affix", "fit", data, "--inputs", "y1,y2,y3,y4,y5,y6", "--outputs", "x1,x2", "--out", folder / "model.json"]
+    cli = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=True)
+    ready = has_open if moment == "file opened" else (lambda pid, _: len(children(pid)) >= 2)
+    while not ready(cli.pid, data):
+        assert cli.poll() is None, cli.stderr.read()
+        time.sleep(0.002)
+    time.sleep(delay)
+    os.killpg(cli.pid, signal.SIGINT)
+    sent = time.monotonic()
+    out, err = cli.communicate(timeout=30)
+    while group_alive(cli.pid) and time.monotonic() - sent < 30:
+        time.sleep(0.01)
+    took = time.monotonic() - sent
+    print(f"\nCtrl-C at '{moment}' + {delay} s: everything ended after {took:.3f} s")
+    assert cli.returncode == 130, err
+    assert err == "affix: interrupted\n" and out == ""
+    assert not group_alive(cli.pid), "a worker process outlived the command"
+    assert took <= 2.0  # the issue's bound for ending every worker
+    assert list(folder.iterdir()) == []  # no model, no temporary file
