@@ -90,7 +90,7 @@ FIT_CASES = {
     "duplicate header name": ("dup.csv", csv_bytes(["b1,b2,b1,Fx,Fz"] + ["1,2,3,4,5"] * 9), [], r"names column 'b1' 2 times"),
     "input listed twice": ("log.csv", edited({}), ["--inputs", "b1,b2,b1"], r"column 'b1' is listed twice in the inputs"),
     "output also an input": ("log.csv", edited({}), ["--outputs", "Fx,b2"], r"column 'b2' is both an input and an output"),
-    "singular inputs": ("twin.csv", csv_bytes([HEADER] + [f"{i},{2 * i},{i * i % 5},{i},{-i}" for i in range(20)]), [], r"inputs b1, b2 are nearly collinear .* pass --ridge 1e-05"),
+    "singular inputs": ("twin.csv", csv_bytes([HEADER] + [f"{i},{2 * i},{i * i % 5},{i},{-i}" for i in range(20)]), [], r"inputs b1, b2 are nearly collinear .* pass --ridge=1e-05"),
     "--folds 1": ("log.csv", edited({}), ["--folds", "1"], r"folds: must be 0 \(no cross-validation\) or a whole number from 2"),
     "negative ridge": ("log.csv", edited({}), ["--ridge", "-0.5"], r"ridge: must be a finite number >= 0"),
     ".npz of unequal columns": ("cols.npz", npz_with({n: npy_of(np.ones(8 if n == "b3" else 9)) for n in ("b1", "b2", "b3", "Fx", "Fz")}), [], r"the column arrays differ in length"),

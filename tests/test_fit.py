@@ -230,6 +230,7 @@ def test_gaussian_monte_carlo_mse_matches_error_covariance():
 # --- refusals and adoption ---------------------------------------------------
 
 
+@pytest.mark.bad_input("fit")
 def test_singular_inputs_are_refused_with_a_ridge_suggestion_that_works():
     rng = np.random.default_rng(2)
     y = rng.normal(size=(100, 3))

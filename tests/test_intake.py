@@ -83,6 +83,7 @@ def test_sha256_over_many_read_blocks(tmp_path, monkeypatch, size_in_blocks):
     assert digest.FileDigest(path).hexdigest() == hashlib.sha256(path.read_bytes()).hexdigest()
 
 
+@pytest.mark.bad_input("fit")
 def test_a_failure_while_hashing_is_an_error_naming_the_file_not_the_hash_of_what_was_read(tmp_path, monkeypatch):
     import errno
 
@@ -112,6 +113,7 @@ def test_a_failure_while_hashing_is_an_error_naming_the_file_not_the_hash_of_wha
         whole(read_chunks(path, ["a", "b"]))
 
 
+@pytest.mark.bad_input("fit")
 def test_a_file_that_changes_during_the_pass_is_refused(tmp_path):
     path = tmp_path / "log.csv"
     write_csv(path, ["a", "b", "c", "d"], table(np.random.default_rng(4)))
@@ -123,6 +125,7 @@ def test_a_file_that_changes_during_the_pass_is_refused(tmp_path):
         list(stream)
 
 
+@pytest.mark.bad_input("fit")
 def test_invalid_rows_are_counted_and_named_or_dropped(tmp_path):
     path = tmp_path / "log.csv"
     path.write_text("a,b\n1,2\n3,nan\n5,6\n,8\n9,inf\n11,12\n")
@@ -139,7 +142,8 @@ def test_invalid_rows_are_counted_and_named_or_dropped(tmp_path):
         whole(read_chunks(array, ["0", "1"], chunk_rows=2))
 
 
-def test_a_non_numeric_cell_is_named_by_file_row_and_column(tmp_path):
+@pytest.mark.bad_input("fit")
+def test_a_non_numeric_cell_is_named_by_file_line_and_column(tmp_path):
     path = tmp_path / "log.csv"
     rows = [f"{i},{i * 2}" for i in range(300)]
     rows[217] = "217,4x2"
@@ -148,6 +152,7 @@ def test_a_non_numeric_cell_is_named_by_file_row_and_column(tmp_path):
         whole(read_chunks(path, ["a", "b"], chunk_rows=100))
 
 
+@pytest.mark.bad_input("fit")
 @pytest.mark.parametrize(
     "make, message",
     [
@@ -164,6 +169,7 @@ def test_unusable_npy_files(tmp_path, make, message):
         column_names(path)
 
 
+@pytest.mark.bad_input("fit")
 def test_missing_file_and_column_and_ambiguous_header(tmp_path):
     with pytest.raises(DataError, match="no such file"):
         read_chunks(tmp_path / "absent.csv", ["a"])
@@ -208,6 +214,7 @@ def test_a_csv_split_across_processes_gives_the_one_pass_result(tmp_path):
         np.testing.assert_allclose(a.scatter, b.scatter, rtol=1e-12, atol=1e-12 * np.abs(b.scatter).max())
 
 
+@pytest.mark.bad_input("fit")
 def test_rows_are_numbered_across_the_whole_file_when_split(tmp_path):
     from affix.fit.passes import file_moments
 

@@ -91,7 +91,7 @@ def _chunk_rows(chunk_rows, default) -> int:
     if chunk_rows is None:
         return default
     if not (isinstance(chunk_rows, int) and chunk_rows >= 1):
-        raise UsageError(f"must be a whole number >= 1, got {chunk_rows!r}", option="chunk_rows")
+        raise UsageError(f"must be a whole number >= 1, got {chunk_rows!r}", parameter="chunk_rows")
     return chunk_rows
 
 
