@@ -152,9 +152,11 @@ def test_input_ctype_takes_one_type_for_the_whole_box():
     # The limits are those of the C99 <stdint.h> exact-width types (ISO/IEC 9899:1999, 7.18.2.1).
     assert input_ctype([(0, 255), (0, 100)]) == "uint8_t"
     assert input_ctype([(-128, 127)]) == "int8_t"
-    assert input_ctype([(0, 4095)]) == "int16_t"  # smallest first: 0..4095 needs no unsigned type
+    # A box that cannot go negative (an ADC) takes the unsigned type its DMA buffer has.
+    assert input_ctype([(0, 4095)]) == "uint16_t"
     assert input_ctype([(0, 40000)]) == "uint16_t"
     assert input_ctype([(-2048, 2047), (0, 4095)]) == "int16_t"
+    assert input_ctype([(-2048, 2047), (0, 40000)]) == "int32_t"
     assert input_ctype([(-1, 65535)]) == "int32_t"  # mixed signs: the signed type that holds both
     assert input_ctype([(0, 2**32 - 1)]) == "uint32_t"
     assert input_ctype([(-1, 2**32 - 1)]) is None

@@ -2,10 +2,11 @@
 from __future__ import annotations
 
 import json
+import re
 
 from affix.model import Model
 from affix.plan import Plan
-from affix.workflow.demo_command import BUDGET, ESTIMATOR
+from affix.workflow.demo_command import BUDGET, CORE, ESTIMATOR
 from conftest import require, run_affix
 
 
@@ -13,6 +14,7 @@ def test_demo_runs_the_whole_job(tmp_path):
     require("gcc")  # the verification step builds the C
     require("micropython")
     require("mpy-cross")
+    require("arm-none-eabi-gcc")  # the emit step measures the C on the emulated Cortex-M4
     out = tmp_path / "demo"
     result = run_affix("demo", out)
     assert result.returncode == 0, result.stdout + result.stderr
@@ -28,12 +30,20 @@ def test_demo_runs_the_whole_job(tmp_path):
         assert worst <= BUDGET[name]
     assert plan.measured["calibration"]["rows"] == 6000
 
+    assert plan.target == CORE and plan.input_ctype == "int16_t"
     firmware = out / "firmware"
     manifest = json.loads((firmware / f"{ESTIMATOR}.manifest.json").read_text())
     assert manifest["coefficients"] == [list(row) for row in plan.coefficients]
-    for suffix in (".h", ".c", ".py"):
+    for suffix in (".h", ".c"):
         assert (firmware / f"{ESTIMATOR}{suffix}").is_file()
-    # Every step printed the command it ran, and the last one passed with zero mismatches.
+    # The MicroPython board's plan keeps every value a small int, so its module has the viper variant.
+    board = Plan.load(out / "wrist_plan_micropython.json")
+    assert board.target == "micropython" and max(board.accumulator_bound) < 2**30
+    assert "def estimate_into_viper" in (out / "micropython" / f"{ESTIMATOR}.py").read_text()
+    # Every step printed the command it ran; both verifications passed with zero mismatches.
     for step in ("$ affix fit", "$ affix quantize", "$ affix emit", "$ affix verify"):
         assert step in result.stdout
-    assert "PASS: 0 mismatches" in result.stdout
+    assert result.stdout.count("PASS: 0 mismatches") == 2
+    assert "MicroPython wrist_ft.py (viper)" in result.stdout
+    # The summary gives what the estimator costs on the Cortex-M4, measured on the emulated core.
+    assert re.search(rf"{CORE}: \d+ instructions per evaluation \(emulated\), flash \d+ bytes", result.stdout)

@@ -21,7 +21,7 @@ from conftest import require
 from plans import random_plan
 
 from affix.arithmetic import INPUT_CTYPES
-from affix.emit.context import CAUTION, input_ctype
+from affix.emit.context import CAUTION
 from affix.emit.micropython import (
     MODULE_TEMPLATE,
     SMALL_INT_32,
@@ -66,7 +66,7 @@ def vectors_for(plan, seed=0):
     rng = np.random.default_rng(seed)
     lo = np.array([r[0] for r in plan.input_ranges], dtype=np.int64)
     hi = np.array([r[1] for r in plan.input_ranges], dtype=np.int64)
-    t_lo, t_hi = INPUT_CTYPES[input_ctype(plan.input_ranges)]
+    t_lo, t_hi = INPUT_CTYPES[plan.input_ctype]
     corners = np.array(list(itertools.product(*zip(lo, hi))), dtype=np.int64)
     inside = rng.integers(lo, hi, size=(N_RANDOM, len(lo)), endpoint=True)
     beyond = rng.integers(t_lo, t_hi, size=(2_000, len(lo)), endpoint=True)

@@ -249,8 +249,12 @@ def test_error_feedback_coefficients_never_worse_than_plain_rounding():
 
 
 def cost(plan):
-    # The documented order: coefficient width, then accumulator width, then output width.
-    return plan.coef_bits, plan.acc_bits, 16 if plan.output_ctype == "int16_t" else 32
+    # The documented order: the target's measured cost of one evaluation at this
+    # shape, then coefficient width, accumulator width and output width.
+    from affix.targets.costs import evaluation_cost
+
+    measured = evaluation_cost(plan.target, plan.coef_bits, plan.acc_bits, len(plan.inputs), len(plan.outputs))
+    return round(measured), plan.coef_bits, plan.acc_bits, 16 if plan.output_ctype == "int16_t" else 32
 
 
 def every_configuration(model, box):

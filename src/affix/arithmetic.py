@@ -35,7 +35,7 @@ OUTPUT_CTYPES = {
     "int16_t": (-(2**15), 2**15 - 1),
     "int32_t": (-(2**31), 2**31 - 1),
 }
-INPUT_CTYPES = {  # in the order the emitter prefers them: smallest first
+INPUT_CTYPES = {  # smallest first
     "int8_t": (-(2**7), 2**7 - 1),
     "uint8_t": (0, 2**8 - 1),
     "int16_t": (-(2**15), 2**15 - 1),
@@ -60,15 +60,23 @@ def rounding_constant(shift: int, rounding: str) -> int:
 
 
 def input_ctype(input_ranges) -> str | None:
-    """The smallest type of INPUT_CTYPES that holds every range of the box, or None.
+    """The default C type of the inputs: the smallest of INPUT_CTYPES holding the whole box,
+    unsigned where no input can be negative (what ADCs and their DMA buffers deliver), or None.
 
     The emitted code passes all inputs in one type, so a box mixing signed and
     unsigned ranges takes the smallest signed type holding both (-1..65535 -> int32_t).
     """
-    for ctype, (lo, hi) in INPUT_CTYPES.items():
-        if all(lo <= r_lo and r_hi <= hi for r_lo, r_hi in input_ranges):
+    unsigned = all(lo >= 0 for lo, _ in input_ranges)
+    for ctype, (lo, _) in INPUT_CTYPES.items():
+        if (lo == 0) == unsigned and ctype_holds(ctype, input_ranges):
             return ctype
     return None
+
+
+def ctype_holds(ctype: str, input_ranges) -> bool:
+    """Whether every range of the box lies within the input type ``ctype``."""
+    lo, hi = INPUT_CTYPES[ctype]
+    return all(lo <= r_lo and r_hi <= hi for r_lo, r_hi in input_ranges)
 
 
 def input_reach(input_ranges) -> list[int]:

@@ -11,8 +11,12 @@ from dataclasses import dataclass
 
 from affix import files
 from affix._version import __version__
-from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES, ROUNDINGS, IntegerEstimator, rounding_name
+from affix.arithmetic import (
+    ACC_BITS, COEF_BITS, INPUT_CTYPES, OUTPUT_CTYPES, ROUNDINGS, IntegerEstimator, ctype_holds, input_ctype,
+    rounding_name,
+)
 from affix.errors import FileFormatError
+from affix.targets import DEFAULT_TARGET, TARGETS
 
 PLAN_FORMAT = "affix.plan/1"
 
@@ -35,6 +39,10 @@ class Plan:
     gain: tuple[tuple[float, ...], ...]
     offset: tuple[float, ...]
     model_sha256: str
+    # The C type of every input (None: the default of affix.arithmetic.input_ctype for the box).
+    input_ctype: str | None = None
+    # The core or runtime the widths were chosen for (affix.targets).
+    target: str = DEFAULT_TARGET
     # Physical size of one input count, where the model's inputs were physical.
     input_lsb: tuple[float | None, ...] | None = None
     # Accuracy analysis, per output, physical units.
@@ -60,6 +68,10 @@ class Plan:
     coefficient_method: str | None = None  # "plain" (round each) or "error-feedback" (searched)
     tool_version: str = __version__
 
+    def __post_init__(self):
+        if self.input_ctype is None:
+            object.__setattr__(self, "input_ctype", input_ctype(self.input_ranges))
+
     def integer_estimator(self) -> IntegerEstimator:
         return IntegerEstimator.from_mapping(self.to_dict())
 
@@ -72,6 +84,8 @@ class Plan:
             "outputs": list(self.outputs),
             "input_ranges": [list(r) for r in self.input_ranges],
             "input_lsb": None if self.input_lsb is None else list(self.input_lsb),
+            "input_ctype": self.input_ctype,
+            "target": self.target,
             "coefficients": [list(row) for row in self.coefficients],
             "offsets": list(self.offsets),
             "shifts": list(self.shifts),
@@ -129,6 +143,8 @@ class Plan:
                 offset=tuple(float(v) for v in data["offset"]),
                 model_sha256=str(data["model_sha256"]),
                 input_lsb=None if data.get("input_lsb") is None else tuple(data["input_lsb"]),
+                input_ctype=data.get("input_ctype"),
+                target=data.get("target", DEFAULT_TARGET),
                 float_rms=_tuple(data.get("float_rms")),
                 predicted_rms_deviation=_tuple(data.get("predicted_rms_deviation")),
                 predicted_total_rms=_tuple(data.get("predicted_total_rms")),
@@ -155,6 +171,12 @@ class Plan:
         for lo, hi in self.input_ranges:
             if lo > hi:
                 raise ValueError(f"input range {lo}:{hi} is inverted")
+        if self.input_ctype not in INPUT_CTYPES:
+            raise ValueError(f"input_ctype must be one of {', '.join(INPUT_CTYPES)} holding the input box")
+        if not ctype_holds(self.input_ctype, self.input_ranges):
+            raise ValueError(f"an input range lies outside input_ctype {self.input_ctype}")
+        if self.target not in TARGETS:
+            raise ValueError(f"target must be one of {', '.join(TARGETS)}")
         if self.output_ctype not in OUTPUT_CTYPES:
             raise ValueError(f"output_ctype must be one of {', '.join(OUTPUT_CTYPES)}")
         if self.rounding not in ROUNDINGS:

@@ -12,10 +12,10 @@ import re
 
 import numpy as np
 
-from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, box_bounds, output_range, rounding_constant
-from affix.arithmetic import input_ctype as smallest_input_ctype
+from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, box_bounds, input_reach, output_range, rounding_constant
 from affix.errors import FileFormatError, UsageError
 from affix.float32_arithmetic import Float32Estimator, error_bound
+from affix.targets import get_target
 
 CAUTION = (
     "This estimator is only as valid as the calibration data's coverage of the operating range; "
@@ -33,19 +33,17 @@ _VERSION = re.compile(r"^[0-9A-Za-z][0-9A-Za-z.+-]{0,39}$")  # PEP 440 versions 
 _ACCURACY_FIELDS = ("float_rms", "predicted_rms_deviation", "predicted_total_rms", "worst_case_deviation")
 
 
-def input_ctype(input_ranges) -> str:
-    """The one C type of every input: the smallest standard type holding the whole box."""
-    ctype = smallest_input_ctype(input_ranges)
-    if ctype is None:
-        raise UsageError("its input_ranges fit none of " + ", ".join(INPUT_CTYPES), "plan")
-    return ctype
+_PRODUCT_LIMIT = 2**31  # a product whose magnitude stays below this is formed in int32_t
+_HALF = (-(2**15), 2**15 - 1)  # what one half of a dual 16-bit multiply-accumulate operand holds
 
 
 def build_context(plan, name: str, *, arith: str = "int", style: str = "table") -> dict:
     """The template context for ``plan`` emitted as ``name``."""
     _check_plan_text(plan)
     bounds = plan.integer_estimator().accumulator_bounds()
-    in_ctype = input_ctype(plan.input_ranges)
+    in_ctype = plan.input_ctype
+    target = get_target(plan.target)
+    reach = input_reach(plan.input_ranges)
     type_lo, type_hi = INPUT_CTYPES[in_ctype]
     out_lo, out_hi = OUTPUT_CTYPES[plan.output_ctype]
     acc_limit = 2 ** (plan.acc_bits - 1)
@@ -60,6 +58,8 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
             "hi": hi,
             "clamp_lo": lo > type_lo,  # a test against the type's own limit could never trigger
             "clamp_hi": hi < type_hi,
+            # Bits of the product this input's terms are formed in (see _product_bits).
+            "product_bits": max(_product_bits(plan, target, row[j], reach[j]) for row in plan.coefficients),
             "lsb": None if plan.input_lsb is None else plan.input_lsb[j],
         }
         for j, (column, (lo, hi)) in enumerate(zip(plan.inputs, plan.input_ranges))
@@ -82,6 +82,12 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
                 "name": column,
                 "coefficients": list(row),
                 "offset": plan.offsets[i],
+                "constant": plan.offsets[i] + round_const,  # c_i + r_i: the rounding constant folded in
+                "terms": [
+                    {"input": j, "coefficient": a, "product_bits": _product_bits(plan, target, a, reach[j])}
+                    for j, a in enumerate(row) if a != 0
+                ],
+                "coef_pairs": _pairs(row),
                 "shift": shift,
                 "applied_shift": applied,
                 "round": round_const,
@@ -109,6 +115,9 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         "inputs": inputs,
         "outputs": outputs,
         "input_ctype": in_ctype,
+        "target": target.name,
+        "dual_mac": arith == "int" and _dual_mac(plan, target),
+        "input_pairs": [(j, j + 1 if j + 1 < len(inputs) else None) for j in range(0, len(inputs), 2)],
         "input_type_bits": _bits(in_ctype),
         "input_type_min": type_lo,
         "input_type_max": type_hi,
@@ -127,6 +136,36 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         "caution": list(CAUTION),
         "check_vectors": check_vectors(plan, in_ctype, arith),
     }
+
+
+def _product_bits(plan, target, coefficient: int, reach: int) -> int:
+    """32 where the product a_ij * y_j is formed in int32_t, else the accumulator width.
+
+    With a 64-bit accumulator on a core without a widening multiply-accumulate
+    (Cortex-M0+, AVR), a 64-bit product is a library call; a term whose
+    magnitude the box bounds below 2**31 multiplies in 32 bits and only its
+    sum is widened.  Cores with SMLAL (and the host) take the 64-bit product
+    in one instruction.
+    """
+    if plan.acc_bits == 32 or (not target.widening_mac and abs(coefficient) * reach < _PRODUCT_LIMIT):
+        return 32
+    return plan.acc_bits
+
+
+def _dual_mac(plan, target) -> bool:
+    """Pairs of terms go through one SMLAD / SMLALD: the core has it, and every
+    coefficient and clamped input fits a signed 16-bit half."""
+    lo, hi = _HALF
+    return (target.dual_mac and plan.coef_bits <= 16
+            and all(lo <= r_lo and r_hi <= hi for r_lo, r_hi in plan.input_ranges))
+
+
+def _pairs(row) -> list[int]:
+    """Coefficients two by two as the int32_t a dual multiply-accumulate reads, the first in
+    the low half (a_0 + 65536 * a_1, which has exactly those two halves); an odd last one
+    is paired with 0."""
+    padded = list(row) + [0] * (len(row) % 2)
+    return [padded[k + 1] * 65536 + (padded[k] & 0xFFFF) for k in range(0, len(padded), 2)]
 
 
 def check_vectors(plan, in_ctype: str, arith: str) -> list[dict]:

@@ -12,7 +12,6 @@ from pathlib import Path
 from affix import files
 from affix.arithmetic import ROUNDING_RULES
 from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, MANIFEST_SUFFIX, STYLES
-from affix.emit.context import input_ctype
 from affix.emit.names import check_names
 from affix.errors import UsageError
 
@@ -88,7 +87,8 @@ def manifest_for(plan, name: str, arith: str, style: str, file_names: dict, note
         "files": file_names,
         "arith": arith,
         "style": style,
-        "input_ctype": input_ctype(plan.input_ranges),
+        "input_ctype": plan.input_ctype,
+        "target": plan.target,
         # The plan's integer type even for float32 code (which returns float):
         # the integer reference is always rebuildable from the manifest.
         "output_ctype": plan.output_ctype,

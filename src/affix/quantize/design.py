@@ -18,17 +18,28 @@ class Configuration:
     coef_bits: int
     acc_bits: int
     output_ctype: str
+    # Every |acc + r| over the box stays below this: 2**(acc_bits - 1), or less
+    # where the target caps it (MicroPython's small ints).
+    acc_limit: int | None = None
 
     @property
-    def cost(self) -> tuple[int, int, int]:
-        """Cheaper first: coefficient width, then accumulator width, then output width.
+    def limit(self) -> int:
+        return 2 ** (self.acc_bits - 1) if self.acc_limit is None else self.acc_limit
 
-        The coefficient width sets the table's flash size and the width of
-        every multiply, so it weighs most; a 64-bit accumulator costs a few
-        instructions per product on a 32-bit core; the output type only its
-        storage.
+    @property
+    def widths(self) -> tuple[int, int, int]:
+        """Narrower first: coefficient width, then accumulator width, then output width.
+
+        The order of the search where the target's cost model has no figure
+        (and between configurations it costs the same): the coefficient width
+        sets the table's flash size and the width of every multiply; a 64-bit
+        accumulator costs a few instructions per product on a 32-bit core; the
+        output type only its storage.
         """
         return self.coef_bits, self.acc_bits, 16 if self.output_ctype == "int16_t" else 32
+
+    def describe(self) -> str:
+        return f"{self.coef_bits}-bit coefficients, {self.acc_bits}-bit accumulator, {self.output_ctype} outputs"
 
 
 @dataclass(frozen=True, eq=False)
@@ -53,7 +64,7 @@ def design_output(gain, offset, lsb, config, box, moments, rounding, search=True
     """Raise Infeasible when no shift passes the proof or the box would saturate the output."""
     g, b = np.asarray(gain, dtype=float) / lsb, offset / lsb
     _check_range(g, b, lsb, box, config.output_ctype)
-    targets = choose_shift(g, b, box, config.coef_bits, config.acc_bits, rounding)
+    targets = choose_shift(g, b, box, config, rounding)
     shift, plain = targets.shift, targets.plain
     reason = saturation(plain, shift, box, rounding, config.output_ctype)
     if reason:
@@ -67,7 +78,7 @@ def design_output(gain, offset, lsb, config, box, moments, rounding, search=True
         candidate = tuple(q + int(k) for q, k in zip(plain, steps))
         if (
             mean_square(error + steps, moments) < mean_square(error, moments)
-            and fits(candidate, shift, box, config.coef_bits, config.acc_bits, rounding) is None
+            and fits(candidate, shift, box, config, rounding) is None
             and saturation(candidate, shift, box, rounding, config.output_ctype) is None
         ):
             chosen, error = candidate, error + steps

@@ -31,7 +31,7 @@ def finest_lsb(gain, offset, config, box) -> float:
         x_high / type_hi,
         x_low / type_lo,
         np.max(np.abs(gain), initial=0.0) / (2.0 ** (config.coef_bits - 1) - 1),  # at shift 0
-        (abs(offset) + float(np.abs(gain) @ reach)) / (2.0 ** (config.acc_bits - 1) - 1),
+        (abs(offset) + float(np.abs(gain) @ reach)) / (config.limit - 1.0),
     ]
     need = max(needs)
     if not need > 0:

@@ -6,7 +6,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, ROUNDINGS
+from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, ROUNDINGS, ctype_holds, input_ctype as default_input_ctype
 from affix.errors import UsageError, parameter
 from affix.plan import Plan
 from affix.quantize.analysis import Problem
@@ -15,7 +15,8 @@ from affix.quantize.budget import DEFAULT_GROWTH_PERCENT, Budget
 from affix.quantize.measure import measure_box, measure_calibration
 from affix.quantize.moments import augmented_moments, uniform_box_moments
 from affix.arithmetic import ACC_BITS, COEF_BITS
-from affix.quantize.search import choose, configurations
+from affix.quantize.search import choose, configurations, missed_outputs
+from affix.targets import DEFAULT_TARGET, get_target
 
 BOX_POINTS = 100_000
 _LARGEST_OUTPUT = 1e150  # its square, and sums of many, stay finite in float64
@@ -33,6 +34,8 @@ def plan_fixed_point(
     budget=None,
     budget_rms=None,
     rounding="nearest",
+    target=DEFAULT_TARGET,
+    input_ctype=None,
     calibration=None,
     search=True,
     box_points=BOX_POINTS,
@@ -50,6 +53,10 @@ def plan_fixed_point(
         With neither and some width left to search, 1 % growth is aimed at, best effort.
     calibration: optional iterable of float arrays (rows, n_inputs) in the model's
         input units, to measure the integer reference on.
+    target: the core or runtime (affix.targets) whose measured costs order the search
+        and whose limits the plan keeps.
+    input_ctype: the C type of every input (default: the smallest holding the box,
+        unsigned where no input can be negative).
     search: False rounds every coefficient on its own (no error feedback).
     """
     _check_choice(coef_bits, COEF_BITS, "coef_bits")
@@ -57,6 +64,11 @@ def plan_fixed_point(
     _check_choice(output_ctype, tuple(OUTPUT_CTYPES), "output_ctype")
     _check_choice(rounding, ROUNDINGS, "rounding")
     box = resolve_ranges(model.inputs, input_ranges)
+    core = get_target(target)
+    in_ctype = _input_ctype(input_ctype, box)
+    if core.accumulator_cap is not None and any(max(abs(lo), abs(hi)) >= core.accumulator_cap for lo, hi in box):
+        raise UsageError(f"the box reaches beyond {core.accumulator_cap - 1}, the limit of every value on "
+                         f"target {core.name}", parameter="input_ranges")
     lsb = resolve_per_name(model.outputs, output_lsb, "output_lsb", kind="lsb")
     input_lsb = resolve_per_name(model.inputs, input_lsb, "input_lsb", kind="input lsb")
     scale = np.array([1.0 if q is None else q for q in input_lsb])
@@ -88,9 +100,21 @@ def plan_fixed_point(
     )
     searching = None in (coef_bits, acc_bits, output_ctype)
     chosen_budget = _budget(model, budget, budget_rms, float_rms, default=searching)
-    choice = choose(problem, configurations(coef_bits, acc_bits, output_ctype), chosen_budget)
-    plan = _plan(model, problem, choice, chosen_budget, input_lsb)
+    configs = configurations(coef_bits, acc_bits, output_ctype, target=core, n_inputs=len(box),
+                             n_outputs=model.n_outputs)
+    choice = choose(problem, configs, chosen_budget)
+    plan = _plan(model, problem, choice, chosen_budget, input_lsb, core.name, in_ctype)
     return _with_measurement(plan, problem, choice, model, scale, calibration, box_points, seed)
+
+
+def _input_ctype(chosen, box) -> str:
+    if chosen is None:
+        return default_input_ctype(box)
+    _check_choice(chosen, tuple(INPUT_CTYPES), "input_ctype")
+    if not ctype_holds(chosen, box):
+        raise UsageError(f"{chosen} does not hold the input box ({parameter('input_ranges')})",
+                         parameter="input_ctype")
+    return chosen
 
 
 def _check_choice(value, allowed, option):
@@ -155,7 +179,7 @@ def _budget(model, budget, budget_rms, float_rms, *, default):
     return None
 
 
-def _plan(model, problem, choice, budget, input_lsb) -> Plan:
+def _plan(model, problem, choice, budget, input_lsb, target, in_ctype) -> Plan:
     designs, figures, config = choice.designs, choice.accuracy, choice.config
     return Plan(
         inputs=model.inputs,
@@ -172,6 +196,8 @@ def _plan(model, problem, choice, budget, input_lsb) -> Plan:
         gain=tuple(tuple(float(v) for v in row) for row in problem.gain),
         offset=tuple(float(v) for v in problem.offset),
         model_sha256=model.sha256,
+        input_ctype=in_ctype,
+        target=target,
         input_lsb=None if all(q is None for q in input_lsb) else input_lsb,
         float_rms=None if problem.float_rms is None else tuple(float(v) for v in problem.float_rms),
         predicted_rms_deviation=figures.deviation,
@@ -185,13 +211,27 @@ def _plan(model, problem, choice, budget, input_lsb) -> Plan:
         },
         accumulator_bound=tuple(d.accumulator_bound for d in designs),
         accumulator_headroom_bits=tuple(
-            float(config.acc_bits - 1 - math.log2(d.accumulator_bound)) if d.accumulator_bound else float(config.acc_bits - 1)
+            float(math.log2(config.limit) - math.log2(d.accumulator_bound)) if d.accumulator_bound
+            else math.log2(config.limit)
             for d in designs
         ),
-        budget=None if budget is None else budget.to_dict(figures),
+        budget=None if budget is None else _budget_record(problem, choice, budget),
         moments_source=problem.moments_source,
         coefficient_method="error-feedback" if problem.search else "plain",
     )
+
+
+def _budget_record(problem, choice, budget) -> dict:
+    record = budget.to_dict(choice.accuracy)
+    cheaper = choice.passed_over
+    if cheaper is not None:  # a wider configuration was forced: say by which outputs
+        record["passed_over"] = {
+            "coef_bits": cheaper.config.coef_bits,
+            "acc_bits": cheaper.config.acc_bits,
+            "output_ctype": cheaper.config.output_ctype,
+            "missed": missed_outputs(problem, cheaper, budget),
+        }
+    return record
 
 
 def _with_measurement(plan, problem, choice, model, scale, calibration, box_points, seed) -> Plan:

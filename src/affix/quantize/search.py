@@ -1,18 +1,22 @@
-"""The cheapest configuration that meets the budget.
+"""The cheapest configuration on the target that meets the budget.
 
-Configurations run cheapest first in the order coefficient width (8 < 16 <
-32), then accumulator width (32 < 64), then output type (int16_t <
-int32_t); widths the user fixed are not searched.  Without a budget the
-cheapest feasible configuration wins.  A default budget that nothing meets
-gives the configuration closest to it; a user's budget that nothing meets is
-an error (exit 3) naming the best figure achievable per output.
+Configurations run cheapest first by the target's measured cost of one
+evaluation at this shape (affix.targets.costs), ties and unmeasured targets
+in the order coefficient width (8 < 16 < 32), then accumulator width (32 <
+64), then output type (int16_t < int32_t); widths the user fixed, or the
+target rules out, are not searched.  Without a budget the cheapest feasible
+configuration wins.  When a cheaper feasible configuration missed the
+budget, the choice records which outputs missed there and by how much.  A
+default budget that nothing meets gives the configuration closest to it; a
+user's budget that nothing meets is an error (exit 3) naming the best figure
+achievable per output.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from itertools import product
 
-from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES
+from affix.arithmetic import COEF_BITS, OUTPUT_CTYPES
 from affix.errors import BudgetError, UsageError
 from affix.quantize.analysis import Accuracy, Problem, accuracy
 from affix.quantize.box import reach
@@ -20,7 +24,8 @@ from affix.quantize.budget import WORST_CASE, Budget
 from affix.quantize.design import Configuration, OutputDesign, design_output
 from affix.quantize.lsb import design_at_finest_lsb
 from affix.quantize.shift import Infeasible
-
+from affix.targets import DEFAULT_TARGET, get_target
+from affix.targets.costs import evaluation_cost
 
 
 @dataclass(frozen=True)
@@ -28,22 +33,38 @@ class Choice:
     config: Configuration
     designs: tuple[OutputDesign, ...]
     accuracy: Accuracy
+    # The costliest of the cheaper feasible configurations, all of which missed the budget, when there were any.
+    passed_over: "Choice | None" = None
 
 
-def configurations(coef_bits=None, acc_bits=None, output_ctype=None) -> list[Configuration]:
+def configurations(coef_bits=None, acc_bits=None, output_ctype=None, *, target=DEFAULT_TARGET,
+                   n_inputs=1, n_outputs=1) -> list[Configuration]:
+    """The configurations to try on ``target``, cheapest first (see the module's docstring)."""
+    target = get_target(target)
+    allowed_acc = target.accumulator_widths
+    if acc_bits is not None and acc_bits not in allowed_acc:
+        raise UsageError(f"target {target.name} takes a {' or '.join(map(str, allowed_acc))}-bit accumulator, "
+                         f"not {acc_bits}", "acc_bits")
     grid = product(
         COEF_BITS if coef_bits is None else (coef_bits,),
-        ACC_BITS if acc_bits is None else (acc_bits,),
+        allowed_acc if acc_bits is None else (acc_bits,),
         tuple(OUTPUT_CTYPES) if output_ctype is None else (output_ctype,),
     )
-    return sorted((Configuration(*c) for c in grid), key=lambda c: c.cost)
+    configs = [Configuration(c, a, o, acc_limit=target.accumulator_limit(a)) for c, a, o in grid]
+
+    def order(config):
+        cost = evaluation_cost(target.name, config.coef_bits, config.acc_bits, n_inputs, n_outputs)
+        return (float("inf") if cost is None else round(cost), config.widths)
+
+    return sorted(configs, key=order)
 
 
 def design_configuration(problem: Problem, config: Configuration) -> tuple[OutputDesign, ...]:
     """Every output designed in this configuration; Infeasible names the output at fault."""
-    too_wide = [name for name, r in zip(problem.inputs, reach(problem.box)) if r >= 2.0 ** (config.acc_bits - 1)]
+    too_wide = [name for name, r in zip(problem.inputs, reach(problem.box)) if r >= config.limit]
     if too_wide:
-        raise Infeasible(f"input '{too_wide[0]}' does not fit a {config.acc_bits}-bit accumulator")
+        raise Infeasible(f"input '{too_wide[0]}' does not fit a {config.acc_bits}-bit accumulator"
+                         + ("" if config.limit == 2 ** (config.acc_bits - 1) else " within the target's limit"))
     designs = []
     for name, gain, offset, lsb in zip(problem.outputs, problem.gain, problem.offset, problem.lsb):
         arguments = (config, problem.box, problem.moments, problem.rounding, problem.search)
@@ -68,7 +89,7 @@ def choose(problem: Problem, configs, budget: Budget | None) -> Choice:
             continue
         choice = Choice(config, designs, accuracy(problem, designs))
         if budget is None or budget.met(choice.accuracy):
-            return choice
+            return replace(choice, passed_over=feasible[-1] if feasible else None)
         feasible.append(choice)
     if not feasible:
         raise UsageError(f"no configuration of the allowed widths works: {reason}")
@@ -89,3 +110,13 @@ def _best_achievable(problem, feasible, budget) -> str:
                 f"acc {best.config.acc_bits}, {best.config.output_ctype})"
             )
     return f"no configuration meets the {what} budget; best achievable: " + ", ".join(parts)
+
+
+def missed_outputs(problem: Problem, choice: Choice, budget: Budget) -> list[dict]:
+    """The outputs that missed ``budget`` in ``choice``: figure, limit and how far over, in percent."""
+    missed = []
+    for name, limit, figure in zip(problem.outputs, budget.limits, budget.figures(choice.accuracy)):
+        if limit is not None and figure > limit:
+            excess = 100.0 * (figure / limit - 1) if limit > 0 else float("inf")
+            missed.append({"output": name, "figure": figure, "limit": limit, "excess_percent": excess})
+    return missed

@@ -39,14 +39,16 @@ def targets_at(g: np.ndarray, b: float, shift: int, rounding: str) -> Targets:
     return Targets(shift, tuple(int(v) for v in rounded), rounded - values)
 
 
-def fits(plain, shift, box, coef_bits, acc_bits, rounding) -> str | None:
-    """None when the integers pass the box proof at this shift, else the reason they do not."""
-    limit = 2 ** (coef_bits - 1)
+def fits(plain, shift, box, config, rounding) -> str | None:
+    """None when the integers pass the box proof at this shift in ``config``, else the reason they do not."""
+    limit = 2 ** (config.coef_bits - 1)
     c, row = plain[0], plain[1:]
     if any(not -limit <= a < limit for a in row):
-        return f"a coefficient needs more than {coef_bits} bits"
-    if accumulator_bound(row, c, shift, box, rounding) >= 2 ** (acc_bits - 1):
-        return f"the worst case over the input box overflows a {acc_bits}-bit accumulator"
+        return f"a coefficient needs more than {config.coef_bits} bits"
+    if accumulator_bound(row, c, shift, box, rounding) >= config.limit:
+        if config.limit < 2 ** (config.acc_bits - 1):
+            return f"the worst case over the input box reaches {config.limit}, the target's limit"
+        return f"the worst case over the input box overflows a {config.acc_bits}-bit accumulator"
     return None
 
 
@@ -59,16 +61,17 @@ def saturation(plain, shift, box, rounding, output_ctype) -> str | None:
     return None
 
 
-def choose_shift(g, b, box, coef_bits, acc_bits, rounding) -> Targets:
+def choose_shift(g, b, box, config, rounding) -> Targets:
     """The largest shift whose plainly rounded integers pass the box proof."""
     # The coefficient limit gives a safe start (no larger shift can fit it);
     # the accumulator limit is not estimated, as rounding toward zero can
     # let a larger shift fit than the real values suggest.
-    start = min(acc_bits - 1, _log2_room(2.0 ** (coef_bits - 1) - 1, np.max(np.abs(g), initial=0.0)))
+    start = min(config.limit.bit_length() - 1,
+                _log2_room(2.0 ** (config.coef_bits - 1) - 1, np.max(np.abs(g), initial=0.0)))
     reason = "no shift fits"
     for shift in range(max(start, 0), -1, -1):
         targets = targets_at(g, b, shift, rounding)
-        reason = fits(targets.plain, shift, box, coef_bits, acc_bits, rounding)
+        reason = fits(targets.plain, shift, box, config, rounding)
         if reason is None:
             return targets
     raise Infeasible(reason)

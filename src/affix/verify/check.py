@@ -18,11 +18,13 @@ from affix.arithmetic import IntegerEstimator
 from affix.emit import MANIFEST_FORMAT
 from affix.errors import FileFormatError, VerificationError
 from affix.float32_arithmetic import Float32Estimator
+from affix.targets import DEFAULT_TARGET, get_target
 from affix.verify.c_build import COMPILE_FLAGS, load_c
 from affix.verify.vectors import calibration_vectors, vector_sets
 
 SHOWN_MISMATCHES = 5
-MICROPYTHON_VECTORS = 10**4  # per vector set and variant: the runtime is an interpreter
+MICROPYTHON_VECTORS = 10**4
+DEFAULT_MPY_MARCH = "armv7emsp"  # the native code checked where the plan's target runs no MicroPython  # per vector set and variant: the runtime is an interpreter
 
 
 @dataclass
@@ -151,8 +153,9 @@ def _check_micropython(out_dir, manifest, sets, reference, limit: int) -> list[R
         for vector_set in sets.values():
             y = vector_set.sample(limit)
             results.append(compare(label, vector_set.name, y, reference.evaluate(y), run_micropython(module, y, variant=variant)))
+    march = get_target(manifest.get("target", DEFAULT_TARGET)).mpy_march or DEFAULT_MPY_MARCH
     with tempfile.TemporaryDirectory(prefix="affix-mpy-") as tmp:  # the .mpy is a check, not an output
-        cross_compile(module, march="armv7emsp", out=Path(tmp) / f"{manifest['name']}.mpy")
+        cross_compile(module, march=march, out=Path(tmp) / f"{manifest['name']}.mpy")
     return results
 
 

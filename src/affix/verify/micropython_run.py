@@ -32,6 +32,7 @@ HOW_SEEN = {
 _MODULE = "estimator_under_test"  # fixed, so no estimator name can shadow the driver's imports
 _CHUNK = 4096  # vectors per read: keeps the driver's buffers far below the default 2 MiB heap
 _TIMEOUT = 600
+_INPUT_TYPECODES = ("b", "B", "h", "H", "i", "I", "l", "L")  # array module integer types (not q: long ints)
 
 
 def tool(name: str) -> str:
@@ -42,8 +43,13 @@ def tool(name: str) -> str:
     return path
 
 
-def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bool = False) -> np.ndarray:
+def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bool = False,
+                    input_typecode: str | None = None) -> np.ndarray:
     """Outputs of ``py_file`` (a .py or .mpy module) for each row of ``vectors``, as int64 (k, n_outputs).
+
+    The inputs reach the module in a list, or with ``input_typecode`` (an
+    array module type code such as "H", what ADC DMA buffers hold) in an
+    array.array of that type.
 
     With ``check_alloc`` each vector is evaluated twice, once watching
     ``micropython.mem_total()`` and once under ``micropython.heap_lock()``;
@@ -52,6 +58,8 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
     if variant not in VARIANTS:
         raise ValueError(f"unknown variant '{variant}' (choose from {', '.join(VARIANTS)})")
     function, returns_list = VARIANTS[variant]
+    if input_typecode is not None and input_typecode not in _INPUT_TYPECODES:
+        raise ValueError(f"input_typecode must be one of {', '.join(_INPUT_TYPECODES)}")
     if check_alloc and returns_list:
         raise ValueError("estimate returns a new list: it allocates by design")
     py_file = Path(py_file)
@@ -69,6 +77,7 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
             function=function,
             returns_list=returns_list,
             check_alloc=check_alloc,
+            input_typecode=input_typecode,
             n_inputs=vectors.shape[1],
             chunk=_CHUNK,
         )

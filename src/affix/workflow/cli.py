@@ -40,6 +40,7 @@ PARAMETER_ARGUMENTS = {
     "input_ranges": "range",
     "output_lsb": "lsb",
     "output_ctype": "output_type",
+    "input_ctype": "input_type",
     "search": "plain_coefficients",
     "out_dir": "out",
     "path": "out",

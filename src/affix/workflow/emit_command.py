@@ -4,7 +4,9 @@ from __future__ import annotations
 import sys
 
 from affix.emit import ARITHS, LANGUAGES, STYLES
+from affix.errors import ToolError
 from affix.plan import Plan
+from affix.targets import get_target
 
 
 def register(sub):
@@ -34,4 +36,20 @@ def run(args) -> int:
         print(f"affix: note: {note}", file=sys.stderr)
     files = [f for names in manifest["files"].values() for f in names] + [manifest_name(args.name)]
     print(f"wrote {', '.join(files)} to {args.out}")
+    if "c" in manifest["files"] and args.arith == "int" and get_target(plan.target).compiler is not None:
+        print(figures_line(args.out, plan.target))
     return 0
+
+
+def figures_line(emit_dir, target) -> str:
+    """One line of what the estimator costs on its target, or why that could not be measured."""
+    from affix.targets.figures import target_figures
+
+    try:
+        figures = target_figures(emit_dir, target)
+    except ToolError as exc:
+        return f"{target}: no figures ({exc.message})"
+    counted = figures["instructions_per_evaluation"]
+    instructions = "" if counted is None else f"{counted:.0f} instructions per evaluation (emulated), "
+    return (f"{target}: {instructions}flash {figures['flash_bytes']} bytes, stack {figures['stack_bytes']} bytes "
+            f"({figures['compiler']} -O2)")

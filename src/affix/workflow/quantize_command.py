@@ -10,19 +10,23 @@ import argparse
 import json
 import math
 
-from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES, ROUNDING_RULES, ROUNDINGS
+from affix.arithmetic import ACC_BITS, COEF_BITS, INPUT_CTYPES, OUTPUT_CTYPES, ROUNDING_RULES, ROUNDINGS
 from affix.errors import UsageError
 from affix.model import Model
+from affix.targets import DEFAULT_TARGET, TARGETS
+from affix.targets.costs import cost_unit, evaluation_cost
 
 
 EPILOG = """\
-widths left open are searched cheapest first: coefficients 8 < 16 < 32 bits, then
-accumulator 32 < 64, then output int16_t < int32_t; the first that meets the budget
-wins. With no budget given, 1 % RMS growth is aimed at (best effort, never an error).
+widths left open are searched cheapest first on the target: by the instructions one
+evaluation takes there (measured on the core, see README), ties by coefficients
+8 < 16 < 32 bits, accumulator 32 < 64, output int16_t < int32_t; the first that meets
+the budget wins. With no budget given, 1 % RMS growth is aimed at (best effort, never
+an error). targets: {targets}.
 default output lsb: the finest power of two at which the output's whole range over
 the box fits the output type and the coefficients fit at a shift >= 0.
-all inputs share one C type: the smallest of int8_t..uint32_t that holds every range
-(a box mixing signs, like -1:65535, takes int32_t).
+all inputs share one C type: by default the smallest of uint8_t..uint32_t holding the
+box when no range is negative, else of int8_t..int32_t (-1:65535 takes int32_t).
 exit status: 0 plan written, 2 bad input, 3 no configuration meets the budget.
 """
 
@@ -33,7 +37,7 @@ def register(sub):
         help="choose integer widths, prove no overflow over the input box and predict the error",
         description="Turn a fitted model into a fixed-point plan: integer coefficients, offsets and shifts "
         "that provably cannot overflow for any input in the box, with the deviation they add.",
-        epilog=EPILOG,
+        epilog=EPILOG.format(targets=", ".join(TARGETS)),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     parser.add_argument("model", help="model file written by 'affix fit'")
@@ -42,6 +46,10 @@ def register(sub):
     parser.add_argument("--coef-bits", type=int, choices=COEF_BITS, help="coefficient width (default: searched)")
     parser.add_argument("--acc-bits", type=int, choices=ACC_BITS, help="accumulator width (default: searched)")
     parser.add_argument("--output-type", choices=tuple(OUTPUT_CTYPES), help="output C type (default: searched)")
+    parser.add_argument("--input-type", choices=tuple(INPUT_CTYPES),
+                        help="C type of the inputs (default: the smallest holding the box, unsigned if it can)")
+    parser.add_argument("--target", choices=tuple(TARGETS), default=DEFAULT_TARGET,
+                        help=f"core or runtime to plan for (default {DEFAULT_TARGET})")
     parser.add_argument("--lsb", action="append", default=[], metavar="[NAME=]V",
                         help="physical size of one output count (default: finest power of two that fits)")
     parser.add_argument("--input-lsb", action="append", default=[], metavar="[NAME=]V",
@@ -86,6 +94,8 @@ def run(args) -> int:
         budget=_named([p for b in args.budget for p in b.split(",")], "budget", _number) or None,
         budget_rms=None if args.budget_rms is None else _percent(args.budget_rms),
         rounding=args.rounding,
+        target=args.target,
+        input_ctype=args.input_type,
         calibration=calibration,
         search=not args.plain_coefficients,
     )
@@ -135,12 +145,19 @@ def _percent(text):
 def summary(plan) -> dict:
     """The plan's decisions and figures, without the coefficient tables."""
     keys = (
-        "model_sha256 outputs coef_bits acc_bits output_ctype rounding shifts output_lsb float_rms "
+        "model_sha256 target input_ctype outputs coef_bits acc_bits output_ctype rounding shifts output_lsb float_rms "
         "predicted_rms_deviation predicted_total_rms worst_case_deviation deviation_parts "
         "accumulator_bound accumulator_headroom_bits budget measured moments_source coefficient_method"
     ).split()
     data = plan.to_dict()
-    return {"plan_sha256": plan.sha256, **{key: data[key] for key in keys}}
+    return {"plan_sha256": plan.sha256, "predicted_cost": _predicted_cost(plan),
+            **{key: data[key] for key in keys}}
+
+
+def _predicted_cost(plan) -> dict | None:
+    """The target's measured cost model at this shape and these widths, or None where it has none."""
+    cost = evaluation_cost(plan.target, plan.coef_bits, plan.acc_bits, len(plan.inputs), len(plan.outputs))
+    return None if cost is None else {"per_evaluation": round(cost), "unit": cost_unit(plan.target)}
 
 
 def table(plan) -> str:
@@ -148,9 +165,13 @@ def table(plan) -> str:
     budget = plan.budget
     calibration = plan.measured.get("calibration")
     random, corners = plan.measured["random"], plan.measured.get("corners")
+    cost = _predicted_cost(plan)
     lines = [
         f"fixed point: {plan.coef_bits}-bit coefficients, {plan.acc_bits}-bit accumulator, "
         f"{plan.output_ctype} outputs, rounding {plan.rounding}, coefficients {plan.coefficient_method}",
+        f"target {plan.target}: {plan.input_ctype} inputs"
+        + ("" if cost is None else f", about {cost['per_evaluation']} {cost['unit']} per evaluation (measured model)"),
+        *_passed_over_lines(budget),
         f"dev = integer minus float estimator, physical units; moments: {_moments(plan)}",
         _budget_line(budget),
         "",
@@ -186,6 +207,17 @@ def table(plan) -> str:
         lines.append(f"    {name}: {_g(random['predicted_rms_deviation'][i])} / {_g(random['rms_deviation'][i])}, "
                      f"{_g(random['max_deviation'][i])}{corner} (bound {_g(plan.worst_case_deviation[i])})")
     return "\n".join(lines)
+
+
+def _passed_over_lines(budget) -> list[str]:
+    """Why a cheaper configuration was not taken: the outputs that missed there, and by how much."""
+    cheaper = (budget or {}).get("passed_over")
+    if not cheaper:
+        return []
+    missed = ", ".join(f"{m['output']} by {m['excess_percent']:.2g} % ({m['figure']:.4g} > {m['limit']:.4g})"
+                       for m in cheaper["missed"])
+    return [f"wider than the cheaper {cheaper['coef_bits']}-bit coefficients, {cheaper['acc_bits']}-bit accumulator, "
+            f"{cheaper['output_ctype']} outputs, where the budget was missed by {missed}"]
 
 
 def _moments(plan) -> str:

@@ -1,0 +1,80 @@
+"""Targets: the cores and runtimes affix plans for, each a plain object.
+
+A :class:`Target` says what the core can do (a single-instruction widening
+multiply-accumulate, the DSP extension's dual 16-bit one, the small-int range
+of a MicroPython port), how to compile for it, and what one evaluation costs
+there: a cost model measured on the core itself and stored as data
+(``costs.json`` beside this file, written by ``tests/benchmarks/measure_target_costs.py``).
+The quantize search orders configurations by that cost; the emitters pick
+the code shape the core runs fastest; :func:`affix.targets.figures.target_figures`
+measures the emitted code on the target.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from affix.errors import UsageError
+
+SMALL_INT_32 = (-(2**30), 2**30 - 1)  # small ints of MicroPython's 32-bit ports (see affix.emit.micropython)
+
+
+@dataclass(frozen=True)
+class Target:
+    name: str
+    summary: str
+    # How C is compiled for it: the compiler and its core flags (None: no C toolchain, MicroPython only).
+    compiler: str | None
+    cpu_flags: tuple[str, ...]
+    # The unicorn CPU model that executes its code instruction by instruction (None: not emulated).
+    emulator: str | None
+    # What the core's multiplier does in one instruction:
+    # SMLAL, 32x32 -> 64 bits added to a 64-bit accumulator (ARMv7-M and later).
+    widening_mac: bool
+    # SMLAD / SMLALD, two 16x16 products added at once (the DSP extension, ARMv7E-M).
+    dual_mac: bool
+    # mpy-cross -march value for the viper variant (None: no MicroPython native code).
+    mpy_march: str | None
+    # Largest |acc + r| the plan may reach, below the accumulator's own limit
+    # (MicroPython: every intermediate a small int, so the viper variant always exists).
+    accumulator_cap: int | None = None
+    # The accumulator widths worth searching there.
+    accumulator_widths: tuple[int, ...] = (32, 64)
+
+    def accumulator_limit(self, acc_bits: int) -> int:
+        """The proof's limit: every |acc + r| over the box stays below it."""
+        limit = 2 ** (acc_bits - 1)
+        return limit if self.accumulator_cap is None else min(limit, self.accumulator_cap)
+
+
+TARGETS = {
+    target.name: target
+    for target in (
+        Target("host", "the machine affix runs on (x86-64 here), C only", "gcc", (), "x86-64",
+               widening_mac=True, dual_mac=False, mpy_march=None),
+        Target("cortex-m0plus", "Arm Cortex-M0+ (ARMv6-M): 32x32->32 MULS, no long multiply",
+               "arm-none-eabi-gcc", ("-mcpu=cortex-m0plus", "-mthumb"), "cortex-m0",
+               widening_mac=False, dual_mac=False, mpy_march="armv6m"),
+        Target("cortex-m4", "Arm Cortex-M4 (ARMv7E-M): single-cycle SMLAL, dual 16-bit SMLAD/SMLALD",
+               "arm-none-eabi-gcc", ("-mcpu=cortex-m4", "-mthumb"), "cortex-m4",
+               widening_mac=True, dual_mac=True, mpy_march="armv7emsp"),
+        Target("cortex-m7", "Arm Cortex-M7 (ARMv7E-M, dual issue): SMLAL, SMLAD/SMLALD",
+               "arm-none-eabi-gcc", ("-mcpu=cortex-m7", "-mthumb"), "cortex-m7",
+               widening_mac=True, dual_mac=True, mpy_march="armv7emdp"),
+        Target("avr", "8-bit AVR (ATmega2560 here): 8x8 MUL, int is 16 bits",
+               "avr-gcc", ("-mmcu=atmega2560",), None,
+               widening_mac=False, dual_mac=False, mpy_march=None),
+        Target("micropython", "MicroPython on a 32-bit port: small ints end at +-2**30",
+               None, (), None, widening_mac=False, dual_mac=False, mpy_march="armv7emsp",
+               accumulator_cap=SMALL_INT_32[1] + 1, accumulator_widths=(32,)),
+    )
+}
+DEFAULT_TARGET = "host"
+
+
+def get_target(name) -> Target:
+    """The target called ``name`` (a Target passes through)."""
+    if isinstance(name, Target):
+        return name
+    if name not in TARGETS:
+        raise UsageError(f"unknown target {name!r} (choose from {', '.join(TARGETS)})", "target")
+    return TARGETS[name]
