@@ -1,4 +1,4 @@
-"""The one jinja2 environment every emitter renders through.
+"""The one jinja2 environment every emitter, and the report, renders through.
 
 Templates live in the top-level ``codegen_templates/`` folder, packaged as
 ``affix.codegen_templates`` (see pyproject.toml), and are found through
@@ -31,7 +31,8 @@ def environment() -> jinja2.Environment:
     env = jinja2.Environment(
         loader=jinja2.FileSystemLoader(str(root)),
         undefined=jinja2.StrictUndefined,
-        autoescape=False,
+        # HTML pages escape every value; C and Python sources never.
+        autoescape=jinja2.select_autoescape(enabled_extensions=("html.jinja",), default=False),
         trim_blocks=True,
         lstrip_blocks=True,
         keep_trailing_newline=True,

@@ -36,36 +36,54 @@ class _Deviation:
         return {"rows": self.rows, "rms_deviation": rms.tolist(), "max_deviation": self.largest.tolist()}
 
 
-def measure_box(estimator, gain, offset, lsb, box, *, points, seed) -> dict:
+def random_box_points(box, points: int, seed) -> np.ndarray:
+    """``points`` integer input vectors drawn uniformly from the box."""
     lo, hi = box_bounds(box, np.int64)
-    y = np.random.default_rng(seed).integers(lo, hi, size=(points, len(box)), endpoint=True)
-    result = {"random": _deviation_on_counts(estimator, gain, offset, lsb, y)}
+    return np.random.default_rng(seed).integers(lo, hi, size=(points, len(box)), endpoint=True)
+
+
+def deviation_on_counts(estimator, gain, offset, lsb, y) -> np.ndarray:
+    """Integer estimate minus the float estimate on the same counts, physical units, (rows, outputs)."""
+    return estimator.evaluate(y) * lsb - (y @ gain.T + offset)
+
+
+def calibration_deviation(estimator, model, input_scale, lsb, box, chunk) -> tuple[np.ndarray, int]:
+    """Integer estimate on the chunk's counts minus the model on its rows as they are (so input
+    quantization is included), for the rows inside the box; and how many rows were left out."""
+    lo, hi = box_bounds(box, float)
+    chunk = np.asarray(chunk, dtype=float).reshape(-1, model.n_inputs)
+    counts = np.rint(chunk / input_scale if np.any(input_scale != 1) else chunk)
+    outside = 0
+    # Column extremes first: the usual chunk lies wholly inside and needs
+    # no row mask (NaN fails these comparisons and takes the slow path).
+    if not (np.all(counts.min(axis=0, initial=np.inf) >= lo) and np.all(counts.max(axis=0, initial=-np.inf) <= hi)):
+        inside = np.all((counts >= lo) & (counts <= hi), axis=1)
+        outside = int((~inside).sum())
+        chunk, counts = chunk[inside], counts[inside]
+    return estimator.evaluate(counts.astype(np.int64)) * lsb - model.predict(chunk), outside
+
+
+def measure_box(estimator, gain, offset, lsb, box, *, points, seed) -> dict:
+    y = random_box_points(box, points, seed)
+    result = {"random": _summary(deviation_on_counts(estimator, gain, offset, lsb, y))}
     box_corners = corners(box)
     if box_corners is not None:
-        result["corners"] = _deviation_on_counts(estimator, gain, offset, lsb, box_corners)
+        result["corners"] = _summary(deviation_on_counts(estimator, gain, offset, lsb, box_corners))
     return result
 
 
 def measure_calibration(estimator, model, input_scale, lsb, box, chunks) -> dict:
-    lo, hi = box_bounds(box, float)
-    scaled = np.any(input_scale != 1)
     tally, outside = _Deviation(model.n_outputs), 0
     for chunk in chunks:
-        chunk = np.asarray(chunk, dtype=float).reshape(-1, model.n_inputs)
-        counts = np.rint(chunk / input_scale if scaled else chunk)
-        # Column extremes first: the usual chunk lies wholly inside and needs
-        # no row mask (NaN fails these comparisons and takes the slow path).
-        if not (np.all(counts.min(axis=0, initial=np.inf) >= lo) and np.all(counts.max(axis=0, initial=-np.inf) <= hi)):
-            inside = np.all((counts >= lo) & (counts <= hi), axis=1)
-            outside += int((~inside).sum())
-            chunk, counts = chunk[inside], counts[inside]
-        tally.add(estimator.evaluate(counts.astype(np.int64)) * lsb - model.predict(chunk))
+        deviation, left_out = calibration_deviation(estimator, model, input_scale, lsb, box, chunk)
+        tally.add(deviation)
+        outside += left_out
     if not tally.rows + outside:
         raise DataError("the calibration data hold no usable rows to measure on", getattr(chunks, "path", None))
     return {**tally.summary(), "rows_outside_box": outside}
 
 
-def _deviation_on_counts(estimator, gain, offset, lsb, y) -> dict:
-    tally = _Deviation(len(lsb))
-    tally.add(estimator.evaluate(y) * lsb - (y @ gain.T + offset))
+def _summary(deviation) -> dict:
+    tally = _Deviation(deviation.shape[1])
+    tally.add(deviation)
     return tally.summary()

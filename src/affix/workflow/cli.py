@@ -28,6 +28,7 @@ COMMAND_MODULES = (
     "affix.workflow.quantize_command",
     "affix.workflow.emit_command",
     "affix.workflow.verify_command",
+    "affix.workflow.report_command",
     "affix.workflow.demo_command",
 )
 
