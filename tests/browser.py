@@ -85,14 +85,16 @@ def visit(chromium: str, page: Path, *, width: int = 1366, height: int = 900, fu
     """Load ``page`` offline at a desktop viewport and report what happened."""
     commands_read, commands_write = os.pipe()
     answers_read, answers_write = os.pipe()
-    # The child's ends moved above 10 first, so placing them at 3 and 4 cannot overwrite one another.
-    child_read, child_write = (fcntl.fcntl(fd, fcntl.F_DUPFD, 10) for fd in (commands_read, answers_write))
+    # The child's ends moved above 10 first (closed at exec), so placing them at 3 and 4 cannot overwrite
+    # one another; 3 and 4 are then the only descriptors Chromium inherits beside stdio (Python opens
+    # everything else non-inheritable), which is why close_fds can stay off.
+    child_read, child_write = (fcntl.fcntl(fd, fcntl.F_DUPFD_CLOEXEC, 10) for fd in (commands_read, answers_write))
     for fd in (commands_read, answers_write):
         os.close(fd)
     with tempfile.TemporaryDirectory(prefix="affix-chromium-") as profile:
         process = subprocess.Popen(
             [chromium, *CHROMIUM_FLAGS, f"--user-data-dir={profile}", "--remote-debugging-pipe", "about:blank"],
-            pass_fds=(3, 4), stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+            close_fds=False, stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
             preexec_fn=lambda: (os.dup2(child_read, 3), os.dup2(child_write, 4)),
         )
         os.close(child_read)

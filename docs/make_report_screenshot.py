@@ -1,0 +1,44 @@
+"""Make docs/report_screenshot.png, the README's picture of the demo's build report.
+
+The demo's calibration scenario goes through the stage functions into a build
+folder (tests/build_folder.py, until 'affix build' makes it), 'affix report'
+writes the page, and the same headless Chromium the tests use takes the
+picture at desktop width:
+
+    .venv/bin/python docs/make_report_screenshot.py
+"""
+from __future__ import annotations
+
+import io
+import shutil
+import sys
+import tempfile
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent / "tests"))
+
+from browser import visit  # noqa: E402
+from build_folder import make_build_folder  # noqa: E402
+from PIL import Image  # noqa: E402
+
+from affix.report import write_report  # noqa: E402
+
+WIDTH, HEIGHT = 1366, 2300  # the page's top: masthead, verdicts, what it is made of, budget, deviation
+
+
+def main() -> None:
+    chromium = shutil.which("chromium")
+    if chromium is None:
+        sys.exit("needs chromium (Debian package 'chromium')")
+    with tempfile.TemporaryDirectory(prefix="affix-screenshot-") as tmp:
+        page = write_report(make_build_folder(tmp))
+        seen = visit(chromium, page, width=WIDTH, height=HEIGHT, full_page=False)
+    picture = Image.open(io.BytesIO(seen.screenshot)).convert("RGB")
+    # 256 colours: the page is flat colour and text, so the picture stays small and sharp.
+    picture.quantize(colors=256, dither=Image.Dither.NONE).save(HERE / "report_screenshot.png", optimize=True)
+    print(f"wrote {HERE / 'report_screenshot.png'}")
+
+
+if __name__ == "__main__":
+    main()
