@@ -37,5 +37,5 @@ def write_report(build_dir) -> Path:
     data = folder.build.data if folder.build else ()
     found = scan([folder.data_path(d) for d in data], data, folder.model, folder.plan)
     path = Path(build_dir) / REPORT_FILE
-    files.write_text(path, render_page(folder, found))
+    files.write_text(path, render_page(folder, found), parameter="build_dir")
     return path

@@ -12,7 +12,7 @@ def register(sub):
         "is missing.",
     )
     parser.add_argument("build_dir", metavar="BUILD_DIR", help="folder written by 'affix build'")
-    parser.set_defaults(run=run)
+    parser.set_defaults(run=run, reads=("build_dir",), writes={"build_dir": "folder"})
 
 
 def run(args) -> int:
