@@ -13,6 +13,7 @@ on trust: the shape and dtype must account for exactly the bytes the file
 """
 from __future__ import annotations
 
+import functools
 import os
 import tokenize
 import zipfile
@@ -45,6 +46,8 @@ def raw_chunks(path, columns, chunk_rows):
         for j, name in enumerate(columns):
             source, position = _find(sources, name)
             wanted.setdefault(source, []).append((j, position))
+        for source in wanted:
+            source.open(stack)
         chunk_rows = max(1, min(chunk_rows, CHUNK_BYTES // max(s.row_bytes for s in wanted)))
         remaining = sources[0].rows
         while remaining:
@@ -94,16 +97,20 @@ class IndexNames(Sequence):
 class _Source:
     """One stored array read row block by row block: its column names and rows.
 
-    ``size`` is the number of bytes the stream holds (the file's, or the
-    archive member's uncompressed size)."""
+    ``opener()`` gives a fresh stream of the stored bytes, ``size`` bytes long
+    (the file's size, or the archive member's uncompressed size).  The header
+    is read and checked at once and the stream closed: only the arrays a pass
+    reads are opened again (:meth:`open`), so an archive of many members
+    costs one decompressor at a time, not one per member."""
 
-    def __init__(self, stream, path, size, key=None):
-        self.stream, self.path, self.key = stream, path, key
+    def __init__(self, opener, path, size, key=None):
+        self.opener, self.path, self.key, self.stream = opener, path, key, None
         try:
-            version = np.lib.format.read_magic(stream)
-            read_header = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
-            shape, fortran, dtype = read_header(stream)
-            header_bytes = stream.tell()
+            with opener() as stream:
+                version = np.lib.format.read_magic(stream)
+                read_header = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
+                shape, fortran, dtype = read_header(stream)
+                header_bytes = stream.tell()
         except (ValueError, TypeError, SyntaxError, RecursionError, tokenize.TokenError, *_READ_ERRORS) as exc:
             # numpy parses the header (at most 10000 characters) as a Python literal, retrying
             # the tokens of an old one: any of these is a damaged header.
@@ -131,6 +138,15 @@ class _Source:
             )
         self.dtype, self.rows = dtype, shape[0]
         self.row_bytes = max(1, self.width * dtype.itemsize)
+        self.header_bytes = header_bytes
+
+    def open(self, stack) -> None:
+        """Open the stored bytes again, at the first row, for :meth:`read`."""
+        try:
+            self.stream = stack.enter_context(self.opener())
+            self.stream.seek(self.header_bytes)
+        except (*_READ_ERRORS, NotImplementedError, RuntimeError) as exc:
+            raise DataError(f"cannot read array{_of(self.key)} ({_one_line(exc)})", self.path) from None
 
     def read(self, k) -> np.ndarray:
         """The next k rows, read straight into a fresh array (no intermediate bytes object)."""
@@ -171,8 +187,7 @@ def _open_sources(path, stack) -> list:
     """The stored arrays: one 2-D array, or 1-D arrays, one per column."""
     if str(path).lower().endswith(".npz"):
         return _open_npz(path, stack)
-    stream = stack.enter_context(open(path, "rb"))
-    return [_Source(stream, path, os.fstat(stream.fileno()).st_size)]
+    return [_Source(lambda: open(path, "rb"), path, os.path.getsize(path))]
 
 
 def _open_npz(path, stack) -> list:
@@ -182,7 +197,7 @@ def _open_npz(path, stack) -> list:
         if not members:
             raise DataError("the .npz archive holds no arrays", path)
         sources = [
-            _Source(stack.enter_context(archive.open(info)), path, info.file_size, info.filename[: -len(".npy")])
+            _Source(functools.partial(archive.open, info), path, info.file_size, info.filename[: -len(".npy")])
             for info in members
         ]
     except (zipfile.BadZipFile, NotImplementedError, RuntimeError, *_READ_ERRORS) as exc:
