@@ -26,7 +26,8 @@ __all__ = ["ChunkStream", "column_names", "from_array", "partition", "read_chunk
 
 
 def column_names(path) -> list[str]:
-    """The names of the columns the file offers, in file order."""
+    """The names of the columns the file offers, in file order (a sequence: a 2-D
+    array's "0", "1", ... are made when asked for, not all at once)."""
     path = _existing(path)
     return _format(path).column_names(path)
 
