@@ -3,12 +3,15 @@
 Parsed in chunks by pandas' C parser with type inference (integer columns
 parse several times faster than when every cell is forced through the float
 parser).  A chunk whose column did not come out numeric is searched for the
-first offending cell, so the error names its line and column.  Empty cells and
-"nan" are missing values (reported, or dropped with drop_invalid, by the
-caller); so is a blank line (a row of empty cells) and a cell missing at the
-end of a short row.  Fields past the header's count are not read.  Cells must
-not contain line breaks: a file is split into parts at line breaks, so that
-parts can be parsed in parallel (see :func:`partition`).
+first offending cell, so the error names its line and column.  One rule for
+every row, wherever it falls (the first, or the first of a worker's part):
+it has the header's fields.  Empty cells and "nan" are missing values
+(reported, or dropped with drop_invalid, by the caller); so is a blank line (a
+row of empty cells) and a cell missing at the end of a short row.  Fields past
+the header's count are not read.  NUL bytes and text that is not UTF-8 are
+errors.  Errors name the line as an editor shows it: the header is line 1.
+Cells must not contain line breaks: a file is split into parts at line breaks,
+so that parts can be parsed in parallel (see :func:`partition`).
 """
 from __future__ import annotations
 
@@ -27,9 +30,9 @@ MISSING = ["", "nan", "NaN", "NAN"]
 _BLOCK = 1 << 20
 _HEADER_LIMIT = 1 << 20
 FIRST_DATA_LINE = 2  # the header is line 1, and every row is one line
-NOT_UTF8 = "not a text CSV file (it is not UTF-8)"
+_NOT_UTF8 = "not a text CSV file (it is not UTF-8)"
 _SHOWN = 40  # characters of a bad cell quoted in a message
-NUL_BYTES = "holds NUL bytes, which no text CSV does (a log preallocated with zeros, or cut short by a crash?)"
+_NUL_BYTES = "holds NUL bytes, which no text CSV does (a log preallocated with zeros, or cut short by a crash?)"
 # Where pandas' C parser says which row it stopped at: counted from 0 in the text it was given.
 _PARSER_ROW = re.compile(r"starting at row (\d+)")
 
@@ -39,13 +42,13 @@ def column_names(path) -> list[str]:
         text = _header_line(path).decode("utf-8-sig")
         header = next(csv.reader([text]), None)
     except UnicodeDecodeError:
-        raise DataError(NOT_UTF8, path, line=1) from None
+        raise DataError(_NOT_UTF8, path, line=1) from None
     except csv.Error as exc:
         raise DataError(f"not a CSV header ({exc})", path, line=1) from None
     if not header:
         raise DataError("empty file: expected a header line naming the columns", path)
     if any("\0" in name for name in header):
-        raise DataError(NUL_BYTES, path, line=1)
+        raise DataError(_NUL_BYTES, path, line=1)
     return [name.strip() for name in header]
 
 
@@ -129,7 +132,7 @@ def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0):
             raise DataError(f"malformed CSV ({_one_line(exc)})", path, line=first_line + int(found.group(1))) from None
         raise _unreadable(path, start, end, first_line) or DataError(f"malformed CSV ({_one_line(exc)})", path) from None
     except UnicodeDecodeError:
-        raise _unreadable(path, start, end, first_line) or DataError(NOT_UTF8, path) from None
+        raise _unreadable(path, start, end, first_line) or DataError(_NOT_UTF8, path) from None
 
 
 class _ByteRange(io.RawIOBase):
@@ -166,7 +169,7 @@ def _numeric(frame, path, first_line, names) -> np.ndarray:
         if bad.any():
             i = int(np.argmax(bad))
             cell = str(column.iloc[i])
-            message = NUL_BYTES if "\0" in cell else f"not a number: {_shown(cell)}"
+            message = _NUL_BYTES if "\0" in cell else f"not a number: {_shown(cell)}"
             raise DataError(message, path, line=first_line + i, column=name)
         frame.isetitem(position, converted)
     return frame.to_numpy(dtype=np.float64)
@@ -184,14 +187,14 @@ def _unreadable(path, start, end, first_line) -> DataError | None:
             try:
                 decoder.decode(block if nul < 0 else block[:nul])
             except UnicodeDecodeError as exc:
-                return DataError(NOT_UTF8, path, line=line + block.count(b"\n", 0, max(exc.start - pending, 0)))
+                return DataError(_NOT_UTF8, path, line=line + block.count(b"\n", 0, max(exc.start - pending, 0)))
             if nul >= 0:
-                return DataError(NUL_BYTES, path, line=line + block.count(b"\n", 0, nul))
+                return DataError(_NUL_BYTES, path, line=line + block.count(b"\n", 0, nul))
             line += block.count(b"\n")
     try:
         decoder.decode(b"", final=True)
     except UnicodeDecodeError:
-        return DataError(NOT_UTF8, path, line=line)
+        return DataError(_NOT_UTF8, path, line=line)
     return None
 
 
