@@ -27,8 +27,11 @@ HERE = Path(__file__).parent
 @pytest.fixture(scope="module")
 def build(tmp_path_factory) -> Path:
     """A complete build folder with every optional part: target figures, a diff and a fleet."""
+    # Target figures as affix.targets.target_figures gives them: numbers, texts, and None where not measured.
     folder = make_build_folder(tmp_path_factory.mktemp("report"), target_figures={
-        "instructions_per_evaluation": 404, "flash_bytes": 1312, "stack_bytes": 96})
+        "target": "cortex-m4", "compiler": "arm-none-eabi-gcc", "flags": "-O2 -mcpu=cortex-m4",
+        "instructions_per_evaluation": 404, "instructions_max": 404, "flash_bytes": 1312, "stack_bytes": 96,
+        "stack_bytes_measured": None})
     write_diff(folder)
     write_fleet(folder)
     write_report(folder)
@@ -159,11 +162,26 @@ def data_figure(build: Path, path: str):
         return {"minimum": column.min(), "maximum": column.max(), "below": int((column < lo).sum()),
                 "above": int((column > hi).sum()),
                 "covered_percent": (min(column.max(), hi) - max(column.min(), lo)) / (hi - lo) * 100}[figure]
+    if kind == "files":
+        return len(data)
+    if kind == "rows":
+        return len(data)
+    if kind == "sample" and rest == ["points"]:
+        return min(len(data), 10_000)  # at most 10**4 points per residual panel
+    inside = np.ones(len(data), dtype=bool)
+    for name, (lo, hi) in zip(plan["inputs"], plan["input_ranges"]):
+        inside &= data[name].between(lo, hi).to_numpy()
+    if kind == "deviation" and rest == ["rows"]:
+        return int(inside.sum())
+    if kind == "deviation" and rest == ["outside_box"]:
+        return int((~inside).sum())
     if kind == "deviation" and rest[0] == "rms":
         # The quantizer measured the same deviation on the same rows when it made the plan.
         return plan["measured"]["calibration"]["rms_deviation"][plan["outputs"].index(rest[1])]
     if kind in ("deviation", "random") and rest[0] == "over_bound":
         return 0  # the bound is a proof: no row may exceed it
+    if kind == "fleet" and rest == ["units"]:
+        return len(list(csv.DictReader((build / "fleet.csv").open(newline=""))))
     if kind == "fleet" and rest == ["failed_units"]:
         return sum(row["passed"] == "false" for row in csv.DictReader((build / "fleet.csv").open(newline="")))
     raise AssertionError(f"unknown data figure {path}")
@@ -204,6 +222,25 @@ def test_no_number_in_a_table_goes_unmarked(page):
         except ValueError:
             continue
         assert cell.find(".//*[@data-source]") is not None, f"unmarked number {text!r}"
+
+
+def unmarked_text(element) -> str:
+    """The text of ``element`` outside the elements that name a source."""
+    if element.get("data-source") is not None:
+        return element.tail or ""
+    inner = (element.text or "") + "".join(unmarked_text(child) for child in element)
+    return inner + (element.tail or "")
+
+
+def test_no_number_in_prose_goes_unmarked(page):
+    document = parse(page)
+    paragraphs = document.findall(".//p[@class='lead']") + document.findall(".//a[@class]")
+    assert len(paragraphs) > 12
+    for paragraph in paragraphs:
+        text = unmarked_text(paragraph).replace(paragraph.tail or "", "").replace("10³", "")
+        for name in sorted(demo_scenario.INPUTS + demo_scenario.OUTPUTS, key=len, reverse=True):
+            text = text.replace(name, "")  # names may hold digits (bridge1); they are not figures
+        assert not any(ch.isdigit() for ch in text), text
 
 
 def test_fleet_and_changes_sections_show_their_files(page):

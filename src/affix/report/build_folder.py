@@ -44,7 +44,7 @@ class BuildInfo:
     data: tuple[DataFile, ...]
     interface_id: str | None
     target: str | None
-    target_figures: dict | None  # figure name -> number
+    target_figures: dict | None  # figure name -> number, text (compiler, flags) or None (not measured)
     raw: dict
 
 
@@ -157,9 +157,10 @@ def _build_info(data, path) -> BuildInfo:
             raise FileFormatError(f"'{key}' must be text or null", path)
     figures = data.get("target_figures")
     if figures is not None and not (
-        isinstance(figures, dict) and all(isinstance(k, str) and _is_number(v) for k, v in figures.items())
+        isinstance(figures, dict)
+        and all(isinstance(k, str) and (v is None or isinstance(v, str) or _is_number(v)) for k, v in figures.items())
     ):
-        raise FileFormatError("'target_figures' must be null or map names to numbers", path)
+        raise FileFormatError("'target_figures' must be null or map names to numbers, texts or null", path)
     return BuildInfo(
         tool_version=data["tool_version"],
         name=data["name"],

@@ -128,18 +128,18 @@ def budget_rows(folder: BuildFolder) -> list[dict]:
     return rows
 
 
-def budget_sentence(plan) -> str:
+def budget_terms(plan) -> dict | None:
+    """What the budget limits, for the sentence above the budget plot (None: no budget was set)."""
     budget = plan.budget
     if not budget:
-        return "No budget was set: the cheapest configuration that fits was taken."
-    if budget.get("kind") == "worst-case":
-        text = "Budget: the proven worst-case |integer − float| of each output at most its limit."
-    else:
-        text = (f"Budget: the predicted total RMS at most {budget.get('growth_percent'):g} % above the estimator's "
-                "own RMS.")
-    if budget.get("default"):
-        text += " This budget was chosen by affix, as none was given; missing it is not an error."
-    return text + (" Met." if budget.get("met") else " NOT met: see the margins.")
+        return None
+    growth = budget.get("growth_percent")
+    return {
+        "kind": budget.get("kind"),
+        "growth": None if growth is None else Number(growth, pointer("plan.json", "budget", "growth_percent")),
+        "default": bool(budget.get("default")),
+        "met": bool(budget.get("met")),
+    }
 
 
 def trend(panel: InputCoverage, output: int) -> tuple[np.ndarray, np.ndarray, float]:

@@ -64,14 +64,12 @@ def header(folder: BuildFolder, scan: DataScan) -> dict:
          "shift": Number(plan.shifts[i], pointer(mf, "shifts", i))}
         for i, name in enumerate(plan.outputs)
     ]
-    files = []
-    for read in scan.files:
-        files.append({"path": read.path, "sha256": read.sha256_recorded, "matches": read.matches,
-                      "rows": read.rows, "problem": read.problem})
+    files = [{"path": read.path, "sha256": read.sha256_recorded, "problem": read.problem,
+              "rows": Number(read.rows, f"data:files/{k}/rows")} for k, read in enumerate(scan.files)]
     return {
         "tool_version": build.tool_version if build else plan.tool_version,
         "interface_id": build.interface_id if build else None,
-        "target": build.target if build else None,
+        "target": build.target if build and build.target else folder.plan.target,
         "has_build": build is not None,
         "project": build.project if build else None,
         "fixed_point": fixed_point,
@@ -118,7 +116,7 @@ def summary_tiles(folder: BuildFolder, sections: dict) -> list[dict]:
         failed = sum(not unit.passed for unit in folder.fleet)
         tiles.append({"label": "fleet", "ok": failed == 0, "href": "#fleet",
                       "number": Number(failed, "data:fleet/failed_units"),
-                      "unit": f"of {len(folder.fleet)} units failing"})
+                      "total": Number(len(folder.fleet), "data:fleet/units"), "unit": "units failing"})
     return tiles
 
 
@@ -128,7 +126,7 @@ def budget_section(folder: BuildFolder) -> dict:
     limited = {"worst-case": "worst_case", "rms-growth": "total"}.get(budget.get("kind"))
     image = plots.budget(list(plan.outputs), content.budget_parts(folder), budget.get("limits"), limited,
                          content.output_units(folder))
-    return {"image": image, "rows": content.budget_rows(folder), "sentence": content.budget_sentence(plan),
+    return {"image": image, "rows": content.budget_rows(folder), "terms": content.budget_terms(plan),
             "moments": plan.moments_source}
 
 
@@ -166,9 +164,10 @@ def deviation_section(folder: BuildFolder, scan: DataScan) -> dict:
             row["calibration_over"] = Number(int(calibration.over_bound[i]), f"data:deviation/over_bound/{name}")
         rows.append(row)
     return {
-        "image": image, "rows": rows, "box_rows": box_rows, "has_calibration": calibration is not None,
-        "calibration_rows": calibration.rows if calibration is not None else 0,
-        "outside_box": calibration.outside_box if calibration is not None else 0,
+        "image": image, "rows": rows, "has_calibration": calibration is not None,
+        "box_rows": Number(box_rows, pointer("plan.json", "measured", "random", "rows")),
+        "calibration_rows": Number(calibration.rows if calibration is not None else 0, "data:deviation/rows"),
+        "outside_box": Number(calibration.outside_box if calibration is not None else 0, "data:deviation/outside_box"),
         "over_bound": int(box_over.sum()) + (int(calibration.over_bound.sum()) if calibration is not None else 0),
     }
 
@@ -189,7 +188,8 @@ def residual_section(folder: BuildFolder, scan: DataScan) -> dict:
     trends = [[content.trend(panel, i) for panel in scan.coverage] for i in range(len(outputs))]
     image = plots.residuals(list(outputs), content.output_units(folder), list(inputs), content.input_units(folder),
                             scan.sample_inputs[:shown], scan.sample_residuals[:shown], trends, note)
-    return {"image": image, "absent": None, "note": note}
+    return {"image": image, "absent": None, "points": Number(shown, "data:sample/points"),
+            "rows": Number(scan.rows, "data:rows")}
 
 
 def coverage_section(folder: BuildFolder, scan: DataScan) -> dict:
@@ -231,14 +231,16 @@ def headroom_section(folder: BuildFolder) -> dict:
              "headroom": Number(plan.accumulator_headroom_bits[i], pointer("plan.json", "accumulator_headroom_bits", i))
              if plan.accumulator_headroom_bits else Number(float(headroom[i]), f"data:headroom/{name}")}
             for i, name in enumerate(plan.outputs)]
-    return {"image": image, "rows": rows, "acc_bits": plan.acc_bits}
+    return {"image": image, "rows": rows, "acc_bits": Number(plan.acc_bits, pointer("plan.json", "acc_bits"))}
 
 
 def verification_section(folder: BuildFolder) -> dict:
     report, build = folder.verification, folder.build
     target = None
     if build is not None and build.target_figures:
-        target = [{"name": key.replace("_", " "), "value": Number(value, pointer("build.json", "target_figures", key))}
+        target = [{"name": key.replace("_", " "),
+                   "value": Number(value, pointer("build.json", "target_figures", key)) if _is_figure(value) else None,
+                   "text": "not measured on this target" if value is None else str(value)}
                   for key, value in build.target_figures.items()]
     if report is None:
         return {"absent": "No verification report (verification.json) is in this build folder.", "target": target,
@@ -253,6 +255,10 @@ def verification_section(folder: BuildFolder) -> dict:
         "evaluations": Number(report["evaluations"], pointer("verification.json", "evaluations")),
         "target": target, "target_name": build.target if build else None,
     }
+
+
+def _is_figure(value) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
 
 
 def changes_section(folder: BuildFolder) -> dict:
@@ -300,4 +306,4 @@ def fleet_section(folder: BuildFolder) -> dict:
                      for o in outputs if not u.per_output[o]["passed"]]}
         for u in units if not u.passed
     ]
-    return {"absent": None, "image": image, "failing": failing, "units": len(units)}
+    return {"absent": None, "image": image, "failing": failing, "units": Number(len(units), "data:fleet/units")}
