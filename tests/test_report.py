@@ -399,6 +399,17 @@ def test_trend_shows_a_missing_square_term(tmp_path):
     assert curve[0] > 0.5 and curve[len(curve) // 2] < -0.2  # high at the ends, low in the middle
 
 
+def test_worker_process_pass_gives_the_same_page(build, tmp_path, monkeypatch):
+    """Large data are read by a forked worker while the page's other plots are drawn: same page."""
+    import importlib
+
+    copy = copy_build(build, tmp_path)
+    serial = write_report(copy).read_bytes()
+    monkeypatch.setattr(importlib.import_module("affix.fit.passes"), "PARALLEL_MIN_BYTES", 0)
+    monkeypatch.setattr(importlib.import_module("affix.fit.passes"), "usable_cpus", lambda: 2)
+    assert write_report(copy).read_bytes() == serial
+
+
 def test_sample_does_not_depend_on_chunking(build):
     from affix.report.build_folder import read_build_folder
     from affix.report import scan as scan_module

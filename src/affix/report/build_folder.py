@@ -94,7 +94,7 @@ def read_build_folder(path) -> BuildFolder:
     plan = Plan.from_dict(plan_dict, path / "plan.json")
     manifest_path, manifest = find_manifest(path)
     _check_manifest(manifest, manifest_path)
-    _check_agree(model, plan, manifest, path)
+    _check_agree(model_dict, plan_dict, manifest, path)
     return BuildFolder(
         path=path,
         model=model,
@@ -125,14 +125,15 @@ def _check_manifest(manifest: dict, path: Path) -> None:
         raise FileFormatError("manifest names, types or file lists are not text", path)
 
 
-def _check_agree(model: Model, plan: Plan, manifest: dict, path: Path) -> None:
-    """The three files describe one estimator: same names, and the plan cites this model."""
-    if plan.model_sha256 != model.sha256:
+def _check_agree(model: dict, plan: dict, manifest: dict, path: Path) -> None:
+    """The three files describe one estimator: the plan cites this model, the manifest this plan (hashes
+    of the files' content as written, so files of an earlier affix version still match), same names."""
+    if plan["model_sha256"] != files.content_sha256(model):
         raise FileFormatError("plan.json was not made from model.json (model_sha256 differs)", path)
-    if manifest.get("plan_sha256") != plan.sha256:
+    if manifest.get("plan_sha256") != files.content_sha256(plan):
         raise FileFormatError("the manifest was not emitted from plan.json (plan_sha256 differs)", path)
-    names = (list(plan.inputs), list(plan.outputs))
-    if (list(model.inputs), list(model.outputs)) != names or (manifest["inputs"], manifest["outputs"]) != names:
+    names = (plan["inputs"], plan["outputs"])
+    if (model["inputs"], model["outputs"]) != names or (manifest["inputs"], manifest["outputs"]) != names:
         raise FileFormatError("model.json, plan.json and the manifest name different inputs or outputs", path)
 
 

@@ -17,17 +17,25 @@ TEMPLATE = "report/page.html.jinja"
 RANDOM_SEED = 0  # the quantizer's default seed for its random box points, so the figures agree
 
 
-def render_page(folder: BuildFolder, scan: DataScan) -> str:
-    sections = {
+def sections_without_data(folder: BuildFolder) -> dict:
+    """The sections drawn from the folder's files alone: they can be drawn while the data are read."""
+    return {
         "budget": budget_section(folder),
-        "deviation": deviation_section(folder, scan),
-        "residuals": residual_section(folder, scan),
-        "coverage": coverage_section(folder, scan),
         "gain": gain_section(folder),
         "headroom": headroom_section(folder),
         "verification": verification_section(folder),
         "changes": changes_section(folder),
         "fleet": fleet_section(folder),
+    }
+
+
+def render_page(folder: BuildFolder, scan: DataScan, drawn: dict | None = None) -> str:
+    """The page's HTML; ``drawn`` is what :func:`sections_without_data` returned, if already called."""
+    sections = {
+        **(drawn if drawn is not None else sections_without_data(folder)),
+        "deviation": deviation_section(folder, scan),
+        "residuals": residual_section(folder, scan),
+        "coverage": coverage_section(folder, scan),
     }
     return render(
         TEMPLATE,

@@ -18,6 +18,7 @@ import matplotlib
 matplotlib.use("Agg")  # before any drawing: never look for a display
 
 import numpy as np  # noqa: E402
+from matplotlib.collections import LineCollection  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.patches import Patch  # noqa: E402
 from matplotlib.ticker import FuncFormatter, MaxNLocator  # noqa: E402
@@ -216,37 +217,95 @@ def deviation(outputs, edges, calibration, random, predicted, random_predicted, 
 @styled
 def residuals(outputs, output_units, inputs, input_units, x, residual, trends, note) -> Image:
     """The residual matrix: a row per output, a column per input, the sampled rows (rasterised) and
-    each pair's trend over every row.  ``trends[i][j]`` = (x, mean residual, share of mean square in %)."""
+    each pair's trend over every row.  ``trends[i][j]`` = (x, mean residual, share of mean square in %).
+
+    With dozens of panels, one matplotlib Axes each would cost more than everything else on the page, so
+    the matrix is one Axes: each panel is a cell of a grid in which its data are scaled to fit, and the
+    tick marks and labels of each column and row are placed by hand.
+    """
     n, m = len(outputs), len(inputs)
-    margins = Margins(left=0.95, right=0.15, between_x=0.12, between_y=0.42, top=0.75, bottom=0.6)
-    figure, axes = _grid(n * m, m, max(1.25, min(2.2, 10.5 / m)), 1.15, margins, sharex="col", sharey="row")
+    cell_w, cell_h = max(1.25, min(2.2, 10.5 / m)), 1.15  # inches
+    margins = Margins(left=1.2, right=0.15, top=0.75, bottom=0.75)
+    figure, axes = _grid(1, 1, cell_w * m, cell_h * n, margins)
+    ax = axes[0, 0]
+    ax.set_axis_off()
+    ax.set_xlim(0, m)
+    ax.set_ylim(n, 0)  # row 0 at the top
+    gap = 0.06  # of a cell, between neighbouring panels
+    x_scales = [_Scale(x[:, j], trends_x=[trends[i][j][0] for i in range(n)], nbins=3) for j in range(m)]
+    y_scales = [_Scale.symmetric(residual[:, i], nbins=4) for i in range(n)]
+    points_x, points_y, lines, zeros, frames = [], [], [], [], []
     for i in range(n):
-        finite = residual[:, i][np.isfinite(residual[:, i])]
-        reach = float(np.percentile(np.abs(finite), 99.5)) * 1.25 if finite.size else 1.0
-        axes[i, 0].set_ylim(-reach or -1, reach or 1)
-        axes[i, 0].set_ylabel(f"{outputs[i]}\n{output_units[i]}", fontsize=7.5)
+        top, bottom = i + gap, i + 1 - gap
+        ys = y_scales[i]
         for j in range(m):
-            ax = axes[i, j]
-            ax.scatter(x[:, j], residual[:, i], s=1.6, linewidths=0, color=PALETTE["estimator"], alpha=0.3,
-                       rasterized=True)
+            left, right = j + gap, j + 1 - gap
+            xs = x_scales[j]
+            points_x.append(xs.place(x[:, j], left, right))
+            points_y.append(ys.place(residual[:, i], bottom, top))
             tx, ty, share = trends[i][j]
-            ax.axhline(0, color=PALETTE["muted"], linewidth=0.7)
-            ax.plot(tx, ty, color=PALETTE["bound"], linewidth=1.6)
-            ax.xaxis.set_major_locator(MaxNLocator(nbins=3, prune="both"))
-            ax.yaxis.set_major_locator(MaxNLocator(nbins=4))
-            ax.text(0.03, 0.96, f"trend {share:.1f} %", transform=ax.transAxes, fontsize=6.5, va="top",
+            lines.append(np.column_stack([xs.place(tx, left, right), ys.place(ty, bottom, top)]))
+            zeros.append([(left, ys.place(0.0, bottom, top)), (right, ys.place(0.0, bottom, top))])
+            frames.append([(left, top), (left, bottom), (right, bottom)])
+            ax.text(left + 0.03, top + 0.03, f"trend {share:.1f} %", fontsize=6.5, va="top",
                     color=PALETTE["bound"] if share >= 1 else PALETTE["muted"])
-            if i == 0:
-                ax.set_title(inputs[j], fontsize=8)
-    for j in range(m):
-        axes[-1, j].set_xlabel(input_units[j], fontsize=7.5)
-        axes[-1, j].tick_params(axis="x", labelsize=6.5)
+    ax.scatter(np.concatenate(points_x), np.concatenate(points_y), s=1.6, linewidths=0, color=PALETTE["estimator"],
+               alpha=0.3, rasterized=True)
+    ax.add_collection(LineCollection(frames, colors=PALETTE["rule"], linewidths=0.8))
+    ax.add_collection(LineCollection(zeros, colors=PALETTE["muted"], linewidths=0.7))
+    ax.add_collection(LineCollection(lines, colors=PALETTE["bound"], linewidths=1.6))
+    for j, xs in enumerate(x_scales):  # column: input name on top, ticks and unit below the last row
+        ax.text(j + 0.5, -0.04, inputs[j], ha="center", va="bottom", fontsize=8, fontweight="bold")
+        for value in xs.ticks:
+            at = xs.place(value, j + gap, j + 1 - gap)
+            ax.plot([at, at], [n - gap, n - gap + 0.04], color=PALETTE["muted"], linewidth=0.8)
+            ax.text(at, n - gap + 0.07, f"{value:g}", ha="center", va="top", fontsize=6.5, color=PALETTE["muted"])
+        ax.text(j + 0.5, n + 0.2, input_units[j], ha="center", va="top", fontsize=7.5)
+    for i, ys in enumerate(y_scales):  # row: ticks left of the first column, output name and unit beyond
+        for value in ys.ticks:
+            at = ys.place(value, i + 1 - gap, i + gap)
+            ax.plot([gap - 0.03, gap], [at, at], color=PALETTE["muted"], linewidth=0.8)
+            ax.text(gap - 0.05, at, f"{value:g}", ha="right", va="center", fontsize=6.5, color=PALETTE["muted"])
+        ax.text(-0.32, i + 0.5, f"{outputs[i]}\n{output_units[i]}", ha="center", va="center", rotation=90,
+                fontsize=7.5)
     _title(figure, "Residuals, measured - estimated (rows: outputs; columns: inputs). A bent trend line means a "
                    "missing term; 'trend' is its share of the residual mean square.\n" + note)
     alt = "Residual of each output against each input, with trend lines. " + " ".join(
         f"{outputs[i]}: " + ", ".join(f"{inputs[j]} trend {trends[i][j][2]:.1f} %" for j in range(m)) + "."
         for i in range(n)) + " " + note
     return _image(figure, "residuals", alt)
+
+
+class _Scale:
+    """A panel axis of the residual matrix: data range, round tick values, and placement in a grid cell."""
+
+    def __init__(self, values, *, trends_x=(), nbins=3, low=None, high=None):
+        finite = values[np.isfinite(values)]
+        extra = [t for t in trends_x if len(t)]
+        if low is None:
+            low = min([finite.min(initial=np.inf)] + [t.min() for t in extra])
+            high = max([finite.max(initial=-np.inf)] + [t.max() for t in extra])
+        if not np.isfinite(low) or not np.isfinite(high):
+            low, high = -1.0, 1.0
+        if high <= low:
+            low, high = low - 1.0, high + 1.0
+        self.low, self.high = float(low), float(high)
+        inner = (self.high - self.low) * 0.12  # ticks off the panel's edges, clear of the neighbour's labels
+        self.ticks = [t for t in MaxNLocator(nbins=nbins).tick_values(self.low, self.high)
+                      if self.low + inner <= t <= self.high - inner]
+
+    @classmethod
+    def symmetric(cls, values, nbins):
+        """Around zero, out to 1.25 times the 99.5th percentile of |value|: a few outliers don't flatten the rest."""
+        finite = np.abs(values[np.isfinite(values)])
+        reach = float(np.percentile(finite, 99.5)) * 1.25 if finite.size else 1.0
+        reach = reach if reach > 0 else 1.0
+        return cls(values, nbins=nbins, low=-reach, high=reach)
+
+    def place(self, values, start, end):
+        """Values mapped linearly from [low, high] to [start, end]; beyond it they are clipped to the edge."""
+        share = (np.clip(values, self.low, self.high) - self.low) / (self.high - self.low)
+        return start + share * (end - start)
 
 
 @styled
