@@ -11,6 +11,7 @@ pandas loading the whole log, which the report must not do.
 from __future__ import annotations
 
 import argparse
+import os
 import statistics
 import subprocess
 import sys
@@ -69,10 +70,11 @@ def main() -> None:
     wall = {name: statistics.median(r[0] for r in rs) for name, rs in runs.items()}
     cpu = {name: statistics.median(r[1] for r in rs) for name, rs in runs.items()}
     memory = {name: max(r[2] for r in rs) for name, rs in runs.items()}
+    print(f"load average of the machine meanwhile: {os.getloadavg()[1]:.1f} (2 cores)")
     print(f"affix report, median of {args.repeat}: {wall['report']:.2f} s wall, {cpu['report']:.2f} s CPU, "
           f"peak {memory['report']} MB")
-    print(f"  the bare intake pass over the same file: {wall['intake']:.2f} s wall, {cpu['intake']:.2f} s CPU "
-          f"({cpu['intake'] / cpu['report']:.0%} of the report's CPU), peak {memory['intake']} MB")
+    print(f"  the bare intake pass over the same file: {wall['intake']:.2f} s wall, {cpu['intake']:.2f} s CPU, "
+          f"peak {memory['intake']} MB; report / intake pass, wall: {wall['report'] / wall['intake']:.2f}")
     print(f"  pandas.read_csv of the whole file: {wall['pandas']:.2f} s wall, peak {memory['pandas']} MB "
           f"(report / whole-file load memory: {memory['report'] / memory['pandas']:.2f})")
     median = wall
