@@ -399,6 +399,19 @@ def test_trend_shows_a_missing_square_term(tmp_path):
     assert curve[0] > 0.5 and curve[len(curve) // 2] < -0.2  # high at the ends, low in the middle
 
 
+def test_a_staged_build_reports_before_its_record(build, tmp_path):
+    """How affix build calls it: the folder staged elsewhere, build.json not written yet."""
+    from affix.report import render_report
+
+    copy = copy_build(build, tmp_path)
+    record = json.loads((copy / "build.json").read_text())
+    staging = tmp_path / "staging"
+    shutil.copytree(copy, staging / "deeper")  # one level deeper than the build: relative paths would miss
+    (staging / "deeper" / "build.json").unlink()
+    text = render_report(staging / "deeper", record=record, home=copy)
+    assert text == write_report(copy).read_text()
+
+
 def test_worker_process_pass_gives_the_same_page(build, tmp_path, monkeypatch):
     """Large data are read by a forked worker while the page's other plots are drawn: same page."""
     import importlib

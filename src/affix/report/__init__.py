@@ -28,21 +28,32 @@ def write_report(build_dir) -> Path:
     model.json, plan.json or the manifest, and ToolError (4) when matplotlib,
     the report's one extra dependency, is not installed.
     """
+    text = render_report(build_dir)
+    path = Path(build_dir) / REPORT_FILE
+    files.write_text(path, text, parameter="build_dir")
+    return path
+
+
+def render_report(build_dir, *, record: dict | None = None, home=None) -> str:
+    """The report page of ``build_dir`` as text, for a caller that writes it itself.
+
+    ``affix build`` stages its folder and writes build.json last, listing every
+    file's hash, report.html's included: it passes the record it is about to
+    write as ``record`` and the folder the build will become as ``home``
+    (build.json's paths are relative to it).  Errors as :func:`write_report`.
+    """
     if importlib.util.find_spec("matplotlib") is None:
         raise ToolError(f"the report needs matplotlib, which is not installed: {INSTALL_HINT}")
     from affix.report.build_folder import read_build_folder
 
-    folder = read_build_folder(build_dir)
+    folder = read_build_folder(build_dir, record=record, home=home)
     records = folder.build.data if folder.build else ()
-    paths = [folder.data_path(record) for record in records]
+    paths = [folder.data_path(data) for data in records]
     with _data_pass(paths, records, folder) as scanned:
         from affix.report.page import render_page, sections_without_data  # matplotlib loads here
 
         drawn = sections_without_data(folder)
-        text = render_page(folder, scanned(), drawn)
-    path = Path(build_dir) / REPORT_FILE
-    files.write_text(path, text, parameter="build_dir")
-    return path
+        return render_page(folder, scanned(), drawn)
 
 
 @contextlib.contextmanager

@@ -68,6 +68,7 @@ class BuildFolder:
     """
 
     path: Path
+    home: Path  # the folder build.json's relative paths start from: where the build lives
     model: Model
     model_dict: dict
     plan: Plan
@@ -80,11 +81,14 @@ class BuildFolder:
     fleet: list[FleetUnit] | None
 
     def data_path(self, data: DataFile) -> Path:
-        """Where a data file of build.json is: relative to the project file, which is relative to this folder."""
-        return self.path / PurePosixPath(self.build.project).parent / PurePosixPath(data.path)
+        """Where a data file of build.json is: relative to the project file, which is relative to the build."""
+        return self.home / PurePosixPath(self.build.project).parent / PurePosixPath(data.path)
 
 
-def read_build_folder(path) -> BuildFolder:
+def read_build_folder(path, *, record: dict | None = None, home=None) -> BuildFolder:
+    """The folder's files, validated.  ``record`` stands for build.json when the build has not written it
+    yet (the build makes its report before its record, which lists every file's hash); ``home`` is where
+    the folder will live, if it is being staged elsewhere (default: ``path``)."""
     path = Path(path)
     if not path.is_dir():
         raise FileFormatError("not a build folder (no such folder)", path)
@@ -97,13 +101,14 @@ def read_build_folder(path) -> BuildFolder:
     _check_agree(model_dict, plan_dict, manifest, path)
     return BuildFolder(
         path=path,
+        home=Path(path if home is None else home),
         model=model,
         model_dict=model_dict,
         plan=plan,
         plan_dict=plan_dict,
         manifest=manifest,
         manifest_file=manifest_path.name,
-        build=_optional(path / "build.json", _build_info),
+        build=_optional(path / "build.json", _build_info) if record is None else _build_info(record, path / "build.json"),
         verification=_optional(path / "verification.json", _verification),
         diff=_optional(path / "diff.json", lambda data, p: _diff(data, p, model)),
         fleet=_fleet(path / "fleet.csv", model.outputs) if (path / "fleet.csv").is_file() else None,
