@@ -38,6 +38,7 @@ class PageVisit:
     text_length: int = 0
     screenshot: bytes = b""  # PNG
     page_height: int = 0
+    pdf: bytes = b""  # the page printed on A4, print style sheet applied
 
 
 class _Pipe:
@@ -142,6 +143,9 @@ def _inspect(pipe: _Pipe, page: Path, width: int, height: int, full_page: bool) 
         "clip": {"x": 0, "y": 0, "width": width, "height": shot_height, "scale": 1},
     }, session=session)
     result.screenshot = base64.b64decode(shot["data"])
+    printed = pipe.send("Page.printToPDF", {"paperWidth": 8.27, "paperHeight": 11.69, "printBackground": True},
+                        session=session)
+    result.pdf = base64.b64decode(printed["data"])
     for event in pipe.events:
         method, params = event.get("method"), event.get("params", {})
         if method == "Network.requestWillBeSent":

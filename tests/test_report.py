@@ -6,6 +6,7 @@ import csv
 import io
 import json
 import os
+import re
 import shutil
 import subprocess
 import sys
@@ -469,3 +470,5 @@ def test_page_renders_in_chromium_offline(build):
     assert screenshot.shape == (900, 1366, 3)
     colours = np.unique(screenshot.reshape(-1, 3), axis=0)
     assert len(colours) > 100 and screenshot.std() > 20  # not blank: text, tiles and the masthead drawn
+    # Printed on A4 with the print style sheet: a PDF of several pages (PDF 1.4: one /Type /Page per page).
+    assert seen.pdf.startswith(b"%PDF-") and len(re.findall(rb"/Type\s*/Page[^s]", seen.pdf)) >= 4
