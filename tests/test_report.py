@@ -401,7 +401,7 @@ def test_trend_shows_a_missing_square_term(tmp_path):
 
 
 def test_a_staged_build_reports_before_its_record(build, tmp_path):
-    """How affix build calls it: the folder staged elsewhere, build.json not written yet."""
+    """How a build can call it: the folder staged elsewhere, build.json not written yet."""
     from affix.report import render_report
 
     copy = copy_build(build, tmp_path)
@@ -409,8 +409,10 @@ def test_a_staged_build_reports_before_its_record(build, tmp_path):
     staging = tmp_path / "staging"
     shutil.copytree(copy, staging / "deeper")  # one level deeper than the build: relative paths would miss
     (staging / "deeper" / "build.json").unlink()
-    text = render_report(staging / "deeper", record=record, home=copy)
+    text = render_report(staging / "deeper", record=record, location=copy)
     assert text == write_report(copy).read_text()
+    # A first build's folder does not exist until it moves into place: 'build-new/..' must still resolve.
+    assert render_report(staging / "deeper", record=record, location=copy.parent / "build-new") == text
 
 
 def test_worker_process_pass_gives_the_same_page(build, tmp_path, monkeypatch):

@@ -21,32 +21,35 @@ REPORT_FILE = "report.html"
 INSTALL_HINT = "pip install 'affix[report]'"
 
 
-def write_report(build_dir) -> Path:
+def write_report(build_dir, *, location=None) -> Path:
     """Write ``build_dir/report.html`` and return its path.
+
+    ``location`` is where the folder will be read from when it differs from
+    ``build_dir`` (a build stages its folder, which then takes the build
+    folder's place): build.json's relative paths start there.
 
     Raises FileFormatError (exit status 2) when the folder lacks or garbles
     model.json, plan.json or the manifest, and ToolError (4) when matplotlib,
     the report's one extra dependency, is not installed.
     """
-    text = render_report(build_dir)
+    text = render_report(build_dir, location=location)
     path = Path(build_dir) / REPORT_FILE
     files.write_text(path, text, parameter="build_dir")
     return path
 
 
-def render_report(build_dir, *, record: dict | None = None, home=None) -> str:
+def render_report(build_dir, *, record: dict | None = None, location=None) -> str:
     """The report page of ``build_dir`` as text, for a caller that writes it itself.
 
-    ``affix build`` stages its folder and writes build.json last, listing every
-    file's hash, report.html's included: it passes the record it is about to
-    write as ``record`` and the folder the build will become as ``home``
-    (build.json's paths are relative to it).  Errors as :func:`write_report`.
+    A build that writes build.json last (its list of file hashes includes
+    report.html's) passes the record it is about to write as ``record``, and
+    ``location`` as for :func:`write_report`.  Errors as :func:`write_report`.
     """
     if importlib.util.find_spec("matplotlib") is None:
         raise ToolError(f"the report needs matplotlib, which is not installed: {INSTALL_HINT}")
     from affix.report.build_folder import read_build_folder
 
-    folder = read_build_folder(build_dir, record=record, home=home)
+    folder = read_build_folder(build_dir, record=record, location=location)
     records = folder.build.data if folder.build else ()
     paths = [folder.data_path(data) for data in records]
     with _data_pass(paths, records, folder) as scanned:

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import csv
 import math
+import os
 import re
 from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
@@ -68,7 +69,7 @@ class BuildFolder:
     """
 
     path: Path
-    home: Path  # the folder build.json's relative paths start from: where the build lives
+    location: Path  # the folder build.json's relative paths start from: where the build lives
     model: Model
     model_dict: dict
     plan: Plan
@@ -82,13 +83,14 @@ class BuildFolder:
 
     def data_path(self, data: DataFile) -> Path:
         """Where a data file of build.json is: relative to the project file, which is relative to the build."""
-        return self.home / PurePosixPath(self.build.project).parent / PurePosixPath(data.path)
+        # Lexically: a build folder still being staged does not exist yet, so 'build/..' would not resolve.
+        return Path(os.path.normpath(self.location / PurePosixPath(self.build.project).parent / PurePosixPath(data.path)))
 
 
-def read_build_folder(path, *, record: dict | None = None, home=None) -> BuildFolder:
+def read_build_folder(path, *, record: dict | None = None, location=None) -> BuildFolder:
     """The folder's files, validated.  ``record`` stands for build.json when the build has not written it
-    yet (the build makes its report before its record, which lists every file's hash); ``home`` is where
-    the folder will live, if it is being staged elsewhere (default: ``path``)."""
+    yet (the build makes its report before its record, which lists every file's hash); ``location`` is
+    where the folder will be, if it is being staged elsewhere (default: ``path``)."""
     path = Path(path)
     if not path.is_dir():
         raise FileFormatError("not a build folder (no such folder)", path)
@@ -101,7 +103,7 @@ def read_build_folder(path, *, record: dict | None = None, home=None) -> BuildFo
     _check_agree(model_dict, plan_dict, manifest, path)
     return BuildFolder(
         path=path,
-        home=Path(path if home is None else home),
+        location=Path(path if location is None else location),
         model=model,
         model_dict=model_dict,
         plan=plan,
