@@ -98,7 +98,8 @@ def test_selftest_passes_and_catches_a_wrong_constant(tmp_path, arith, style):
     if arith == "float32":
         tampered = re.sub(r"(-?\d\.\d*e[+-]\d\d)f", lambda m: f"{float(m.group(1)) * 1.5:.8e}f", source, count=1)
     else:
-        pattern = r"(demo|probe)_coef\[.*?\{ (-?\d+)" if style == "table" else r"acc \+= \(int32_t\)INT32_C\((-?\d+)\)"
+        pattern = (r"probe_rows\[PROBE_N_OUTPUTS\] = \{\s*\{ UINT32_C\(\d+\), \d+u, \{ (-?\d+)" if style == "table"
+                   else r"u \+= \(uint32_t\)\(\(int32_t\)INT32_C\((-?\d+)\)")
         match = re.search(pattern, source, re.S)
         number = match.group(match.lastindex)
         start = match.start(match.lastindex)
@@ -147,10 +148,13 @@ def test_only_freestanding_headers_and_no_float_in_int_code(tmp_path, arith, sty
 
 
 def test_table_style_uses_static_const_tables(tmp_path):
-    _, out, _ = _emit(tmp_path, "int16-in int16-out acc32", "int", "table")
+    plan, out, _ = _emit(tmp_path, "int16-in int16-out acc32", "int", "table")
     source = (out / "probe.c").read_text()
-    assert re.search(r"static const int16_t probe_coef\[PROBE_N_OUTPUTS\]\[PROBE_N_INPUTS\]", source)
-    assert re.search(r"static const int32_t probe_offset\[", source)
+    assert re.search(r"static const struct probe_row probe_rows\[PROBE_N_OUTPUTS\]", source)
+    assert "int16_t coef[PROBE_N_INPUTS];" in source
+    # Each row starts its unsigned sum at c + r + 2^31: offset, rounding constant and bias in one.
+    first = plan.offsets[0] + (1 << (plan.shifts[0] - 1) if plan.shifts[0] else 0) + 2**31
+    assert f"{{ UINT32_C({first}), {plan.shifts[0]}u, {{ {plan.coefficients[0][0]}," in source
 
 
 def test_most_negative_constants_are_spelt_safely(tmp_path):

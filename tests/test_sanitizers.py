@@ -63,9 +63,9 @@ def test_the_sanitizer_is_really_on(tmp_path):
     manifest = emit(plan, lang="c", name="probe", out_dir=tmp_path / "emitted")
     source = tmp_path / "emitted" / "probe.c"
     text = source.read_text()
-    marker = "    if (s == 0u) {\n        return v;\n    }\n"
+    marker = "    return (int32_t)(u >> s)"
     assert marker in text
-    source.write_text(text.replace(marker, "    s += 32u;\n"))
+    source.write_text(text.replace(marker, "    s += 32u;\n" + marker))
     exe = build_driver(tmp_path / "emitted", manifest, tmp_path, extra_flags=SANITIZE)
     with pytest.raises(ToolError, match="shift"):
         run_driver(exe, manifest, np.zeros((1, 2), dtype=np.int64))

@@ -95,20 +95,21 @@ def cmsis_counts(core: str, shape, work: Path) -> dict[str, float]:
     return counts
 
 
-def bench_plan(shape, widths):
-    """A plan the quantizer makes for a random model over int16 inputs, in these widths."""
+def bench_plan(shape, widths, target="host"):
+    """A plan the quantizer makes for ``target`` from a random model over int16 inputs, in these widths."""
     rows, cols = shape
     rng = np.random.default_rng(rows * 100 + cols)
     model = Model(inputs=tuple(f"y{j}" for j in range(cols)), outputs=tuple(f"x{i}" for i in range(rows)),
                   gain=rng.normal(size=(rows, cols)) * 10.0 ** rng.uniform(-3, -1, size=(rows, 1)),
                   offset=rng.normal(size=rows))
-    return plan_fixed_point(model, (-32768, 32767), coef_bits=widths[0], acc_bits=widths[1], box_points=1000)
+    return plan_fixed_point(model, (-32768, 32767), coef_bits=widths[0], acc_bits=widths[1], target=target,
+                            box_points=1000)
 
 
 def affix_counts(core: str, shape, widths, style: str, work: Path) -> float | None:
     coef_bits, acc_bits = widths
     rows, cols = shape
-    plan = bench_plan(shape, widths)
+    plan = bench_plan(shape, widths, core)
     out = work / f"{core}-{rows}x{cols}-{coef_bits}-{acc_bits}-{style}"
     emit(plan, lang="c", style=style, name="bench", out_dir=out)
     return target_figures(out, core)["instructions_per_evaluation"]

@@ -16,7 +16,6 @@ from __future__ import annotations
 import json
 import sys
 import tempfile
-from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -46,7 +45,7 @@ def main() -> None:
                 for acc_bits in target.accumulator_widths:
                     measured = []
                     for shape in SHAPES:
-                        plan = replace(bench_plan(shape, (coef_bits, acc_bits)), target=target.name)
+                        plan = bench_plan(shape, (coef_bits, acc_bits), target.name)
                         out = Path(tmp) / f"{target.name}-{coef_bits}-{acc_bits}-{shape[0]}x{shape[1]}"
                         emit(plan, lang="c", style="table", name="cost", out_dir=out)
                         figures = target_figures(out, target)

@@ -3,10 +3,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from affix.emit.context import build_context
+from affix.emit.context import build_context, dual_mac_applies
 from affix.emit.templates import render
 from affix.errors import UsageError
 from affix.float32_arithmetic import FLOAT32_MAX, magnitude_bound
+from affix.targets import get_target
 
 
 def render_c(plan, name: str, *, arith: str = "int", style: str = "table") -> dict[str, str]:
@@ -18,6 +19,17 @@ def render_c(plan, name: str, *, arith: str = "int", style: str = "table") -> di
         f"{name}.h": render("c/header.h.jinja", **context),
         f"{name}.c": render("c/source.c.jinja", **context),
     }
+
+
+def notes(plan, *, arith: str, style: str) -> list[str]:
+    """Plain-text lines for the emit report and the manifest."""
+    target = get_target(plan.target)
+    narrow_inputs = int("".join(ch for ch in plan.input_ctype if ch.isdigit())) < 32
+    if (arith == "int" and style == "unrolled" and target.widening_mac and target.compiler != "gcc"
+            and plan.acc_bits == 64 and narrow_inputs and not dual_mac_applies(plan, target)):
+        return [f"c: on {target.name}, GCC 12 turns a 32-bit immediate times a {plan.input_ctype} input into a "
+                "64 x 64-bit multiply; the table style keeps one SMLAL per term"]
+    return []
 
 
 def _check_float32_range(plan) -> None:

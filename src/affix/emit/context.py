@@ -44,6 +44,10 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
     in_ctype = plan.input_ctype
     target = get_target(plan.target)
     reach = input_reach(plan.input_ranges)
+    # A 64-bit sum whose every shift is 32 or more is floored from its high word
+    # alone (floor(floor(v / 2^32) / 2^(s-32)) = floor(v / 2^s)): 32-bit work.
+    applied_shifts = [min(s, plan.acc_bits - 1) for s in plan.shifts]
+    high_shift = plan.acc_bits == 64 and min(applied_shifts, default=0) >= 32
     type_lo, type_hi = INPUT_CTYPES[in_ctype]
     out_lo, out_hi = OUTPUT_CTYPES[plan.output_ctype]
     acc_limit = 2 ** (plan.acc_bits - 1)
@@ -83,6 +87,9 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
                 "coefficients": list(row),
                 "offset": plan.offsets[i],
                 "constant": plan.offsets[i] + round_const,  # c_i + r_i: the rounding constant folded in
+                # c_i + r_i + 2**(N-1): where the unsigned sum of the C code starts.
+                "biased": plan.offsets[i] + round_const + 2 ** (plan.acc_bits - 1),
+                "q_shift": applied - 32 if high_shift else applied,
                 "terms": [
                     {"input": j, "coefficient": a, "product_bits": _product_bits(plan, target, a, reach[j])}
                     for j, a in enumerate(row) if a != 0
@@ -116,7 +123,7 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         "outputs": outputs,
         "input_ctype": in_ctype,
         "target": target.name,
-        "dual_mac": arith == "int" and _dual_mac(plan, target),
+        "dual_mac": arith == "int" and dual_mac_applies(plan, target),
         "input_pairs": [(j, j + 1 if j + 1 < len(inputs) else None) for j in range(0, len(inputs), 2)],
         "input_type_bits": _bits(in_ctype),
         "input_type_min": type_lo,
@@ -127,6 +134,9 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         "output_min": out_lo,
         "output_max": out_hi,
         "acc_bits": plan.acc_bits,
+        "high_shift": high_shift,
+        "q_bits": 32 if high_shift else plan.acc_bits,  # width of the floored value q
+        "zero_shift": any(s - (32 if high_shift else 0) == 0 for s in applied_shifts),
         "coef_bits": plan.coef_bits,
         "rounding": plan.rounding,
         "accumulator_bound": max(o["acc_bound"] for o in outputs),
@@ -152,7 +162,7 @@ def _product_bits(plan, target, coefficient: int, reach: int) -> int:
     return plan.acc_bits
 
 
-def _dual_mac(plan, target) -> bool:
+def dual_mac_applies(plan, target) -> bool:
     """Pairs of terms go through one SMLAD / SMLALD: the core has it, and every
     coefficient and clamped input fits a signed 16-bit half."""
     lo, hi = _HALF

@@ -36,9 +36,10 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
     rendered: dict[str, dict[str, str]] = {}
     notes: list[str] = []
     if "c" in languages:
-        from affix.emit.c import render_c
+        from affix.emit.c import notes as c_notes, render_c
 
         rendered["c"] = render_c(plan, name, arith=arith, style=style)
+        notes += c_notes(plan, arith=arith, style=style)
     if "micropython" in languages:
         from affix.emit.micropython import notes as micropython_notes, render_micropython
 
