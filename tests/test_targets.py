@@ -31,7 +31,7 @@ from affix.verify.vectors import vector_sets
 from conftest import require, run_affix
 from plans import random_plan
 
-EMULATED = [name for name, t in TARGETS.items() if t.emulator and t.name != "host"]
+EMULATED = [name for name, t in TARGETS.items() if t.emulator not in (None, "simavr") and name != "host"]  # unicorn
 PLANS = {  # widths, inputs and outputs that take each code shape: DSP pairs, SMLAL, narrow products, odd counts
     "16/32 int16 7x5": dict(seed=1, n_inputs=7, n_outputs=5, ranges="int16", coef_bits=16, acc_bits=32),
     "16/64 uint8 3x2": dict(seed=2, n_inputs=3, n_outputs=2, ranges="uint8", coef_bits=16, acc_bits=64,
@@ -118,6 +118,18 @@ def test_target_figures_are_measured_on_the_core(tmp_path):
     assert json.loads(json.dumps(m4)) == m4  # plain data, as build.json stores it
 
 
+def test_avr_cycles_are_counted_in_simavr(tmp_path):
+    # A 64-bit sum on the AVR: products formed in 32 bits where the box allows
+    # (planned for the avr) against 64-bit products (planned for the host).
+    require("avr-gcc")
+    require("simavr")
+    plan = random_plan(seed=3, n_inputs=7, n_outputs=6, ranges="int16", coef_bits=16, acc_bits=64)
+    avr = target_figures(_emit(tmp_path, plan, "avr")[0], "avr")
+    host_shaped = target_figures(_emit(tmp_path, plan, "host")[0], "avr")
+    assert avr["instructions_per_evaluation"] is None and avr["flash_bytes"] > 0
+    assert 42 < avr["cycles_per_evaluation"] < 0.6 * host_shaped["cycles_per_evaluation"]
+
+
 def test_a_missing_cross_compiler_is_one_line_and_exit_status_4(tmp_path, monkeypatch):
     out, _ = _emit(tmp_path, random_plan(1), "cortex-m4")
     monkeypatch.setenv("PATH", str(tmp_path / "empty"))
@@ -130,7 +142,8 @@ def test_a_missing_cross_compiler_is_one_line_and_exit_status_4(tmp_path, monkey
 def test_the_cost_file_says_how_it_was_measured_and_fits_its_measurements():
     table = cost_table()
     assert "unicorn" in table["how"] and "measure_target_costs.py" in table["how"]
-    for target in ("host", "cortex-m0plus", "cortex-m4", "cortex-m7"):
+    assert "simavr" in table["how"] and table["targets"]["avr"]["unit"] == "cycles"
+    for target in ("host", "cortex-m0plus", "cortex-m4", "cortex-m7", "avr"):
         for widths, entry in table["targets"][target]["configurations"].items():
             coef_bits, acc_bits = map(int, widths.split("/"))
             for n_out, n_in, counted in entry["measured"]:

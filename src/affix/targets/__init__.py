@@ -25,7 +25,8 @@ class Target:
     # How C is compiled for it: the compiler and its core flags (None: no C toolchain, MicroPython only).
     compiler: str | None
     cpu_flags: tuple[str, ...]
-    # The unicorn CPU model that executes its code instruction by instruction (None: not emulated).
+    # What runs its code: a unicorn CPU model that executes it instruction by
+    # instruction, "simavr" (cycle-accurate AVR simulator), or None.
     emulator: str | None
     # What the core's multiplier does in one instruction:
     # SMLAL, 32x32 -> 64 bits added to a 64-bit accumulator (ARMv7-M and later).
@@ -61,7 +62,7 @@ TARGETS = {
                "arm-none-eabi-gcc", ("-mcpu=cortex-m7", "-mthumb"), "cortex-m7",
                widening_mac=True, dual_mac=True, mpy_march="armv7emdp"),
         Target("avr", "8-bit AVR (ATmega2560 here): 8x8 MUL, int is 16 bits",
-               "avr-gcc", ("-mmcu=atmega2560",), None,
+               "avr-gcc", ("-mmcu=atmega2560",), "simavr",
                widening_mac=False, dual_mac=False, mpy_march=None),
         Target("micropython", "MicroPython on a 32-bit port: small ints end at +-2**30",
                None, (), None, widening_mac=False, dual_mac=False, mpy_march="armv7emsp",

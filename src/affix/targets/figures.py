@@ -10,14 +10,18 @@ vectors bit for bit on the emulated core.
 """
 from __future__ import annotations
 
+import re
 import tempfile
 from pathlib import Path
 
 import numpy as np
 
+from affix.errors import ToolError
 from affix.targets import get_target
 from affix.targets.emulator import SCRATCH, SCRATCH_SIZE, Emulator
-from affix.targets.toolchain import build_image
+from affix.targets.toolchain import OPTIMIZE, build_image, compiler_path
+
+SIMAVR = "simavr"
 
 COUNTED_VECTORS = 24  # corners first, then random points of the box
 _DTYPES = {"int8_t": "<i1", "uint8_t": "<u1", "int16_t": "<i2", "uint16_t": "<u2", "int32_t": "<i4",
@@ -35,7 +39,8 @@ class EmulatedEstimator:
         emit_dir = Path(emit_dir).resolve()
         self.image = build_image(self.target, [emit_dir / f"{name}.c"], self.function, work_dir,
                                  include_dirs=[emit_dir])
-        self.emulator = Emulator(self.image.elf, self.target.emulator) if self.target.emulator else None
+        emulated = self.target.emulator not in (None, SIMAVR)
+        self.emulator = Emulator(self.image.elf, self.target.emulator) if emulated else None
         self._in = np.dtype(_DTYPES[manifest["input_ctype"]])
         self._out = np.dtype(_DTYPES[manifest["output_ctype"]])
         self._n_in, self._n_out = len(manifest["inputs"]), len(manifest["outputs"])
@@ -71,12 +76,13 @@ def measurement_vectors(input_ranges, count: int = COUNTED_VECTORS, seed: int = 
 
 
 def target_figures(emit_dir, target) -> dict:
-    """Instructions per evaluation (where emulated), flash and stack of the estimator in ``emit_dir`` on ``target``.
+    """Instructions (or AVR cycles) per evaluation, flash and stack of the estimator in ``emit_dir`` on ``target``.
 
     Plain figures: {"target", "compiler", "flags", "instructions_per_evaluation",
-    "instructions_max", "flash_bytes", "stack_bytes", "stack_bytes_measured"};
-    the instruction and measured-stack figures are None where the target is not
-    emulated.  Raises ToolError (exit 4) when the cross compiler is missing.
+    "instructions_max", "cycles_per_evaluation", "flash_bytes", "stack_bytes",
+    "stack_bytes_measured"}; instructions where unicorn emulates the core,
+    cycles where simavr simulates it, None otherwise.  Raises ToolError
+    (exit 4) when the cross compiler or simulator is missing.
     """
     from affix.verify.check import find_manifest
 
@@ -92,12 +98,52 @@ def target_figures(emit_dir, target) -> dict:
             "flags": " ".join(code.image.flags),
             "instructions_per_evaluation": None,
             "instructions_max": None,
+            "cycles_per_evaluation": None,
             "flash_bytes": code.image.flash_bytes,
             "stack_bytes": code.image.stack_bytes,
             "stack_bytes_measured": None,
         }
+        vectors = measurement_vectors(manifest["input_ranges"])
         if code.emulator is not None:
-            _, counts, stack = code.evaluate(measurement_vectors(manifest["input_ranges"]), count=True)
+            _, counts, stack = code.evaluate(vectors, count=True)
             figures.update(instructions_per_evaluation=float(np.mean(counts)), instructions_max=max(counts),
                            stack_bytes_measured=stack)
+        elif target.emulator == SIMAVR:
+            figures["cycles_per_evaluation"] = avr_cycles(emit_dir, manifest, vectors, Path(work) / "cycles")
     return figures
+
+
+def avr_cycles(emit_dir, manifest, vectors, work_dir) -> float:
+    """Mean CPU cycles of one call on an ATmega2560 in simavr, counted by its Timer1 (prescaler 1)."""
+    import shutil
+    import subprocess
+
+    from affix.emit.templates import render
+
+    simavr = shutil.which(SIMAVR)
+    if simavr is None:
+        raise ToolError("'simavr' not found: the avr figures need it (see DEVELOPERS.md)")
+    target = get_target("avr")
+    name = manifest["name"]
+    emit_dir, work_dir = Path(emit_dir).resolve(), Path(work_dir)
+    work_dir.mkdir()
+    main = work_dir / "timing_main.c"
+    main.write_text(render("c/avr_cycles_main.c.jinja", name=name, input_ctype=manifest["input_ctype"],
+                           output_ctype=manifest["output_ctype"], input_bits=_bits(manifest["input_ctype"]),
+                           vectors=np.asarray(vectors).tolist()))
+    elf = work_dir / "timing.elf"
+    cc = compiler_path(target)
+    done = subprocess.run([cc, *target.cpu_flags, "-std=c99", OPTIMIZE, f"-I{emit_dir}", str(main),
+                           str(emit_dir / f"{name}.c"), "-o", str(elf)], capture_output=True, text=True)
+    if done.returncode != 0:
+        raise ToolError(f"avr-gcc failed: {done.stderr.strip()[-1500:]}")
+    run = subprocess.run([simavr, "-m", "atmega2560", "-f", "16000000", str(elf)], capture_output=True, text=True,
+                         timeout=600)
+    found = re.search(r"cycles=(\d+) calls=(\d+)", run.stdout + run.stderr)
+    if not found:
+        raise ToolError(f"simavr gave no cycle count: {(run.stderr or run.stdout).strip()[-500:]}")
+    return int(found.group(1)) / int(found.group(2))
+
+
+def _bits(ctype: str) -> int:
+    return int("".join(ch for ch in ctype if ch.isdigit()))

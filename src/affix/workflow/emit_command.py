@@ -49,7 +49,9 @@ def figures_line(emit_dir, target) -> str:
         figures = target_figures(emit_dir, target)
     except ToolError as exc:
         return f"{target}: no figures ({exc.message})"
-    counted = figures["instructions_per_evaluation"]
+    counted, cycles = figures["instructions_per_evaluation"], figures["cycles_per_evaluation"]
     instructions = "" if counted is None else f"{counted:.0f} instructions per evaluation (emulated), "
+    if cycles is not None:
+        instructions = f"{cycles:.0f} cycles per evaluation (simavr), "
     return (f"{target}: {instructions}flash {figures['flash_bytes']} bytes, stack {figures['stack_bytes']} bytes "
             f"({figures['compiler']} -O2)")
