@@ -27,7 +27,7 @@ def notes(plan, *, arith: str, style: str) -> list[str]:
     narrow_inputs = int("".join(ch for ch in plan.input_ctype if ch.isdigit())) < 32
     if (arith == "int" and style == "unrolled" and target.widening_mac and target.compiler != "gcc"
             and plan.acc_bits == 64 and narrow_inputs and not dual_mac_applies(plan, target)):
-        return [f"c: on {target.name}, GCC 12 turns a 32-bit immediate times a {plan.input_ctype} input into a "
+        return [f"c: on {target.name}, GCC 12 turns a 32-bit immediate times an input of type {plan.input_ctype} into a "
                 "64 x 64-bit multiply; the table style keeps one SMLAL per term"]
     return []
 

@@ -135,6 +135,7 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         "output_max": out_hi,
         "acc_bits": plan.acc_bits,
         "high_shift": high_shift,
+        "narrow_products": plan.acc_bits == 64 and any(t["product_bits"] == 32 for o in outputs for t in o["terms"]),
         "q_bits": 32 if high_shift else plan.acc_bits,  # width of the floored value q
         "zero_shift": any(s - (32 if high_shift else 0) == 0 for s in applied_shifts),
         "coef_bits": plan.coef_bits,
