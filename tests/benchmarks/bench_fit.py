@@ -5,13 +5,17 @@
 1. CSV, 2,000,000 rows x 18 columns (12 inputs, 6 outputs): `affix fit` versus
    pandas.read_csv of the whole file followed by numpy.linalg.lstsq.
    Targets: wall time <= 0.7x, peak memory <= 0.3x.
-2. .npy, 10,000,000 rows x 18 float64 columns: `affix fit` versus the bare
-   work of reading it with np.load(mmap_mode='r') and forming Y^T Y chunk by
-   chunk.  Target: wall time <= 1.5x; affix's peak memory the same for
+2. .npy, 10,000,000 rows x 18 float64 columns: `affix fit` versus what a
+   user must do to get the same result and its provenance: read it with
+   np.load(mmap_mode='r'), form Y^T Y chunk by chunk, and take the SHA-256 of
+   the file (the model's data_sha256).  Target: wall time <= 0.8x (affix
+   overlaps the hash with the statistics on the machine's two cores).
+   Beside it, the ratio to the same baseline without the hash (the figure
+   this benchmark used to report).  affix's peak memory must be the same for
    2,500,000 and 10,000,000 rows.
 3. In the same runs, hashing each file alone (SHA-256 in 1 MiB blocks in a
-   fresh interpreter), as a ratio to the baseline: the model must carry the
-   file's digest, so this is the floor under affix's time ratio.
+   fresh interpreter), as a ratio to the baseline without the hash: the
+   model must carry the file's digest, so this is a floor under affix's time.
 
 Every measurement is a fresh child process.  Wall times are medians of
 --repeat runs of each side, alternating, so both see the same load on a shared
@@ -66,6 +70,9 @@ with open(sys.argv[1], "rb") as f:
         digest.update(block)
 """
 
+# What a user must run for the .npy fit's result and provenance: the statistics, then the file's SHA-256.
+BASELINE_NPY_HASHED = BASELINE_NPY + HASH_ONLY
+
 
 def tree_pss(pid) -> int:
     """Proportional set size in bytes of a process and all its descendants:
@@ -102,24 +109,33 @@ def run(command, sample_memory=False) -> float:
     return peak / 2**20 if sample_memory else wall
 
 
-def compare(name, ours, theirs, repeat, path):
+def compare(name, ours, theirs, repeat, path, hashed=None):
     """Median wall time of ``repeat`` alternating runs, then one memory run of each side.
 
     Alongside, the time of hashing the file alone (HASH_ONLY): the model must
     carry the file's SHA-256, so this is a floor under affix's time that no
-    parsing or statistics speed-up can go below."""
+    parsing or statistics speed-up can go below.  ``hashed``, when given, is
+    the baseline that also takes the file's SHA-256, timed in the same rounds.
+    Returns the ratios {"time", "memory", "hash", "hashed"} and affix's peak MB."""
     sides = {"affix": ours, "baseline": theirs, "hash": [sys.executable, "-c", HASH_ONLY, path]}
+    if hashed:
+        sides["hashed"] = hashed
     times = {side: [] for side in sides}
     for _ in range(repeat):
         for side, command in sides.items():
             times[side].append(run(command))
-    t_a, t_b, t_h = (statistics.median(times[side]) for side in sides)
+    t = {side: statistics.median(values) for side, values in times.items()}
     m_a, m_b = run(ours, sample_memory=True), run(theirs, sample_memory=True)
+    ratios = {"time": t["affix"] / t["baseline"], "memory": m_a / m_b, "hash": t["hash"] / t["baseline"]}
+    extra = ""
+    if hashed:
+        ratios["hashed"] = t["affix"] / t["hashed"]
+        extra = f" | baseline + SHA-256 {t['hashed']:.2f} s, time ratio {ratios['hashed']:.2f}"
     load = os.getloadavg()[0]
-    print(f"{name}: affix {t_a:.2f} s {m_a:.0f} MB | baseline {t_b:.2f} s {m_b:.0f} MB | "
-          f"time ratio {t_a / t_b:.2f}  memory ratio {m_a / m_b:.2f} | "
-          f"hash alone {t_h:.2f} s, ratio {t_h / t_b:.2f}  (load average {load:.1f})", flush=True)
-    return t_a / t_b, m_a / m_b, m_a, t_h / t_b
+    print(f"{name}: affix {t['affix']:.2f} s {m_a:.0f} MB | baseline {t['baseline']:.2f} s {m_b:.0f} MB | "
+          f"time ratio {ratios['time']:.2f}  memory ratio {ratios['memory']:.2f}{extra} | "
+          f"hash alone {t['hash']:.2f} s, ratio {ratios['hash']:.2f}  (load average {load:.1f})", flush=True)
+    return ratios, m_a
 
 
 def sensor_rows(rng, count):
@@ -176,7 +192,7 @@ def main():
         names = ["--inputs", ",".join(INPUTS), "--outputs", ",".join(OUTPUTS), "--out", str(folder / "model.json")]
         print(f"CSV {csv_path.stat().st_size / 1e6:.0f} MB, {CSV_ROWS} rows x 18 columns; .npy "
               + ", ".join(f"{n} rows {p.stat().st_size / 1e6:.0f} MB" for n, p in npy_paths.items()), flush=True)
-        t_csv, m_csv, _, h_csv = compare(
+        csv, _ = compare(
             "CSV 2M rows", affix + [csv_path] + names,
             [sys.executable, "-c", BASELINE_CSV, csv_path, ",".join(INPUTS), ",".join(OUTPUTS)], args.repeat,
             csv_path,
@@ -186,14 +202,16 @@ def main():
         npy_names[3] = ",".join(str(j) for j in range(len(INPUTS), len(INPUTS) + len(OUTPUTS)))
         peaks = {}
         for n, p in npy_paths.items():
-            t_npy, _, peaks[n], h_npy = compare(
-                f".npy {n} rows", affix + [p] + npy_names, [sys.executable, "-c", BASELINE_NPY, p], args.repeat, p
+            npy, peaks[n] = compare(
+                f".npy {n} rows", affix + [p] + npy_names, [sys.executable, "-c", BASELINE_NPY, p], args.repeat, p,
+                hashed=[sys.executable, "-c", BASELINE_NPY_HASHED, p],
             )
         small, large = NPY_ROWS
-        print(f"targets: CSV time {t_csv:.2f} (<= 0.7), CSV memory {m_csv:.2f} (<= 0.3), "
-              f".npy time {t_npy:.2f} (<= 1.5), .npy peak {peaks[small]:.0f} MB at {small} rows vs "
-              f"{peaks[large]:.0f} MB at {large} rows; hashing alone takes {h_csv:.2f} (CSV) and {h_npy:.2f} (.npy) "
-              "of the baseline's time")
+        print(f"targets: CSV time {csv['time']:.2f} (<= 0.7), CSV memory {csv['memory']:.2f} (<= 0.3), "
+              f".npy time {npy['hashed']:.2f} of the baseline with its SHA-256 (<= 0.8; {npy['time']:.2f} of the "
+              f"baseline without), .npy peak {peaks[small]:.0f} MB at {small} rows vs {peaks[large]:.0f} MB at "
+              f"{large} rows; hashing alone takes {csv['hash']:.2f} (CSV) and {npy['hash']:.2f} (.npy) of the "
+              "baseline's time")
 
 
 if __name__ == "__main__":
