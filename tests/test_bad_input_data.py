@@ -108,6 +108,7 @@ FIT_CASES = {
     "+inf and -inf in one row": ("log.csv", edited({7: "inf,-inf,3,4,5"}), [], r"log.csv, line 7: 1 row\(s\) hold NaN, infinite or empty values, the first in column 'b1'"),
     "values near 1e160, whose squares overflow": ("log.csv", edited({14: "1e160,2,3,4,5"}), [], r"log.csv, line 14, column 'b1': 1e\+160 is beyond ±1e\+150"),
     "an output of -1e300": ("log.csv", edited({3: "1,2,3,4,-1e300"}), [], r"log.csv, line 3, column 'Fz': -1e\+300 is beyond ±1e\+150"),
+    "an input of values near 1e-200, whose squares underflow": ("log.csv", csv_bytes([HEADER] + [f"{i}e-200,{i % 7},{i * i % 5},{i},{-i}" for i in range(1, 40)]), [], r"log.csv, column 'b1': values near 2e-199 are too small to square in double precision"),
     ".npy whose header declares 10^12 rows": ("big.npy", npy_header((10**12, 5)) + bytes(80), ["--inputs", "0,1,2", "--outputs", "3,4"], r"big.npy: array declares the shape \(1000000000000, 5\) of float64 \(40000000000000 bytes\), but the file holds 80 bytes"),
     ".npy whose header declares 10^18 x 10^6": ("big.npy", npy_header((10**18, 10**6)) + bytes(80), ["--inputs", "0,1,2", "--outputs", "3,4"], r"big.npy: array declares the shape \(1000000000000000000, 1000000\)"),
     ".npy declaring a million columns": ("wide.npy", npy_header((1, 10**6), "|i1") + bytes(10**6), ["--inputs", "0,1,2", "--outputs", "999999,5"], r"only 1 usable row"),

@@ -24,6 +24,11 @@ from affix.model import Model
 from affix.statistics import MAX_FOLDS, merge_all
 
 
+# Below this magnitude a value's square underflows to zero or loses digits
+# (float64's smallest normal number is 2.2e-308), so a spread of such values vanishes.
+_SMALLEST_SQUARED = 1e-150
+
+
 class CollinearityWarning(UserWarning):
     """Some inputs are nearly linear combinations of others; their gains are poorly determined."""
 
@@ -160,6 +165,13 @@ def _check_rows(moments, inputs, columns, path):
             )
     spread = np.sqrt(np.diag(moments.scatter)[:m] / (n - 1))
     for name, mean, sd in zip(inputs, moments.mean[:m], spread):
+        if sd == 0 and 0 < abs(mean) < _SMALLEST_SQUARED:
+            raise DataError(
+                f"values near {mean:.3g} are too small to square in double precision (below "
+                f"{_SMALLEST_SQUARED:.0e}); rescale the column",
+                path,
+                column=name,
+            )
         if sd <= 8 * np.finfo(float).eps * abs(mean):
             raise DataError(
                 f"input column is constant ({mean:.6g} in every row), so it carries no information; leave it out",
