@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 
 from affix.arithmetic import ACC_BITS, COEF_BITS, INPUT_CTYPES, OUTPUT_CTYPES, ROUNDING_RULES, ROUNDINGS
 from affix.errors import UsageError
