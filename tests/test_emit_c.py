@@ -18,7 +18,7 @@ import pytest
 from affix.emit.c import render_c
 from affix.emit.context import CAUTION
 from affix.emit.writer import emit
-from affix.errors import UsageError
+from affix.errors import FileFormatError, UsageError
 from affix.verify.c_build import build_driver, run_selftest
 from conftest import require, run_affix
 from plans import random_plan
@@ -212,14 +212,14 @@ def test_float32_micropython_is_refused_before_writing(tmp_path):
     assert not (tmp_path / "out").exists()
 
 
-def test_input_beyond_a_32_bit_accumulator_is_refused():
+def test_input_beyond_a_32_bit_accumulator_is_refused(tmp_path):
     # Converting 3e9 to int32_t would be implementation-defined (C99 §6.3.1.3p3).
     plan = random_plan(2, 2, 1, ranges="uint16")
     plan = type(plan)(**{**plan.__dict__, "input_ranges": ((0, 3 * 10**9), plan.input_ranges[1]),
                          "input_ctype": None, "coefficients": ((0, 1),)})
-    plan.validate()
-    with pytest.raises(UsageError, match="beyond the 32-bit accumulator"):
-        render_c(plan, "probe")
+    with pytest.raises(FileFormatError, match=r"input_ranges\[0\]'.* beyond the 32-bit accumulator"):
+        emit(plan, lang="c", name="probe", out_dir=tmp_path)
+    assert not tmp_path.joinpath("probe.c").exists()
 
 
 @pytest.mark.parametrize("plan_kind", ["int16-in int16-out acc32", "uint32-in int16-out acc64 saturating",

@@ -28,7 +28,7 @@ ROUNDING_RULES = {
 }
 # Plan and manifest files written before the rename still say "half-up"
 # (which decimal libraries use for ties away from zero; here it meant ties up).
-_ROUNDING_ALIASES = {"half-up": "nearest"}
+ROUNDING_ALIASES = {"half-up": "nearest"}
 COEF_BITS = (8, 16, 32)  # the widths a plan may use, cheapest first
 ACC_BITS = (32, 64)
 OUTPUT_CTYPES = {
@@ -48,7 +48,7 @@ _FLOAT64_EXACT = 2**53  # every integer below this is exact in a double
 
 def rounding_name(value) -> str:
     """The current name of a rounding read from a file, old spellings included."""
-    return _ROUNDING_ALIASES.get(value, value)
+    return ROUNDING_ALIASES.get(value, value)
 
 
 def rounding_constant(shift: int, rounding: str) -> int:

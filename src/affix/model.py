@@ -10,14 +10,12 @@ exactly, as a quadratic form).
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
 
-from affix import files
+from affix import files, schema
 from affix._version import __version__
-from affix.errors import FileFormatError
 
 MODEL_FORMAT = "affix.model/1"
 
@@ -51,7 +49,6 @@ class Model:
             value = getattr(self, name)
             if value is not None:
                 object.__setattr__(self, name, np.asarray(value, dtype=float))
-        _check_shapes(self)
 
     @property
     def n_inputs(self) -> int:
@@ -112,75 +109,82 @@ class Model:
 
     @classmethod
     def from_dict(cls, data, path=None) -> "Model":
-        files.check_format(data, MODEL_FORMAT, "model", path)
-        missing = [k for k in ("inputs", "outputs", "gain", "offset") if k not in data]
-        if missing:
-            raise FileFormatError(f"model file lacks key(s): {', '.join(missing)}", path)
-        try:
-            model = cls(
-                inputs=_names(data["inputs"], "inputs"),
-                outputs=_names(data["outputs"], "outputs"),
-                gain=_finite(data["gain"], "gain"),
-                offset=_finite(data["offset"], "offset"),
-                error_covariance=_finite_or_none(data.get("error_covariance"), "error_covariance"),
-                cv_rms=_finite_or_none(data.get("cv_rms"), "cv_rms"),
-                n_samples=int(data.get("n_samples", 0)),
-                input_mean=_finite_or_none(data.get("input_mean"), "input_mean"),
-                input_covariance=_finite_or_none(data.get("input_covariance"), "input_covariance"),
-                ridge=float(data.get("ridge", 0.0)),
-                folds=int(data.get("folds", 0)),
-                condition_number=data.get("condition_number"),
-                data_sha256=data.get("data_sha256"),
-                source=str(data.get("source", "affix fit")),
-                dropped_rows=int(data.get("dropped_rows", 0)),
-                tool_version=str(data.get("tool_version", "")),
-            )
-        except (ValueError, TypeError) as exc:
-            raise FileFormatError(str(exc), path) from None
-        return model
+        values = MODEL_SCHEMA.load(data, path)
+        del values["rms"]  # derived from error_covariance; the schema checked that they agree
+        return cls(**values)
 
     @classmethod
     def load(cls, path) -> "Model":
         return cls.from_dict(files.read_json(path, "model"), path)
 
-
-def _names(value, key):
-    if not isinstance(value, list) or not value or not all(isinstance(v, str) and v for v in value):
-        raise ValueError(f"'{key}' must be a non-empty list of names")
-    if len(set(value)) != len(value):
-        raise ValueError(f"'{key}' has duplicate names")
-    return value
+    def validate(self) -> None:
+        """Raise FileFormatError where this model breaks its file schema (for models built in Python)."""
+        MODEL_SCHEMA.load(self.to_dict())
 
 
-def _finite(value, key):
-    try:
-        arr = np.asarray(value, dtype=float)
-    except (ValueError, TypeError):
-        raise ValueError(f"'{key}' is not numeric") from None
-    if not np.all(np.isfinite(arr)):
-        raise ValueError(f"'{key}' holds NaN or infinite values")
-    return arr
+# --- the model file's schema -------------------------------------------------
+
+COUNT = schema.Integer(0, 2**63 - 1)
+# Double-precision rounding a fitted matrix may carry, relative to its scale
+# (common practice: about 10**4 ulps leaves room for sums of many products).
+_FIT_ROUNDING = 1e-12
 
 
-def _finite_or_none(value, key):
-    return None if value is None else _finite(value, key)
+def _error_covariance_is_a_covariance(values) -> None:
+    """PSD up to the fit's rounding.  The error covariance is a difference,
+    S_xx - A S_yx, of terms of the size of the outputs' own variance (about
+    diag(A S_yy A') when the input covariance is known), so its rounding is
+    relative to that, not to its own (possibly tiny) entries."""
+    matrix = values["error_covariance"]
+    if matrix is None:
+        return
+    matrix = np.array(matrix)
+    scale = float(np.max(np.abs(matrix), initial=0.0))
+    if values["input_covariance"] is not None:
+        gain = np.array(values["gain"])
+        with np.errstate(over="ignore", invalid="ignore"):
+            explained = float(np.max(np.abs(np.diag(gain @ np.array(values["input_covariance"]) @ gain.T)),
+                                     initial=0.0))
+        if np.isfinite(explained):
+            scale = max(scale, explained)
+    schema.check_covariance(matrix, "error_covariance", scale * _FIT_ROUNDING * len(matrix))
 
 
-def _check_shapes(model: Model) -> None:
-    m, n = model.n_inputs, model.n_outputs
-    expect = {
-        "gain": (n, m),
-        "offset": (n,),
-        "error_covariance": (n, n),
-        "cv_rms": (n,),
-        "input_mean": (m,),
-        "input_covariance": (m, m),
-    }
-    for name, shape in expect.items():
-        value = getattr(model, name)
-        if value is not None and value.shape != shape:
-            raise ValueError(f"'{name}' has shape {value.shape}, expected {shape} for {m} inputs and {n} outputs")
-    if model.condition_number is not None and not (
-        isinstance(model.condition_number, (int, float)) and not math.isnan(model.condition_number)
-    ):
-        raise ValueError("'condition_number' must be a number")
+def _rms_agrees(values) -> None:
+    if values["rms"] is None:
+        return
+    if values["error_covariance"] is None:
+        schema.fail("rms", "is given without the error_covariance it derives from")
+    derived = np.sqrt(np.clip(np.diag(np.array(values["error_covariance"])), 0.0, None))
+    if not np.allclose(values["rms"], derived, rtol=1e-9, atol=0.0):
+        schema.fail("rms", "disagrees with the square root of the error_covariance diagonal")
+
+
+def _folds_are_a_split(values) -> None:
+    if values["folds"] == 1:
+        schema.fail("folds", "must be 0 (no cross-validation) or at least 2, got 1")
+
+
+MODEL_SCHEMA = schema.Schema(
+    "model",
+    MODEL_FORMAT,
+    schema.Field("tool_version", schema.VERSION),
+    schema.Field("source", schema.Text(min_length=1), default="affix fit"),
+    schema.Field("inputs", schema.NAMES, size=True),
+    schema.Field("outputs", schema.NAMES, size=True),
+    schema.Field("gain", schema.Array(("outputs", "inputs"), schema.Number())),
+    schema.Field("offset", schema.Array(("outputs",), schema.Number())),
+    schema.Field("error_covariance", schema.OrNone(schema.Covariance("outputs", sign=None)), default=None),
+    schema.Field("rms", schema.OrNone(schema.Array(("outputs",), schema.Number(min=0.0))), default=None),
+    schema.Field("cv_rms", schema.OrNone(schema.Array(("outputs",), schema.Number(min=0.0))), default=None),
+    schema.Field("n_samples", COUNT, default=0),
+    schema.Field("input_mean", schema.OrNone(schema.Array(("inputs",), schema.Number())), default=None),
+    schema.Field("input_covariance", schema.OrNone(schema.Covariance("inputs")), default=None),
+    schema.Field("ridge", schema.Number(min=0.0), default=0.0),
+    schema.Field("folds", COUNT, default=0),
+    # The condition number of a correlation matrix is at least 1 (up to rounding).
+    schema.Field("condition_number", schema.OrNone(schema.Number(min=1.0 - 1e-9)), default=None),
+    schema.Field("data_sha256", schema.OrNone(schema.SHA256), default=None),
+    schema.Field("dropped_rows", COUNT, default=0),
+    rules=(_error_covariance_is_a_covariance, _rms_agrees, _folds_are_a_split),
+)

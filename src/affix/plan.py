@@ -9,16 +9,18 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from affix import files
+from affix import files, schema
 from affix._version import __version__
 from affix.arithmetic import (
-    ACC_BITS, COEF_BITS, INPUT_CTYPES, OUTPUT_CTYPES, ROUNDINGS, IntegerEstimator, ctype_holds, input_ctype,
-    rounding_name,
+    ACC_BITS, COEF_BITS, INPUT_CTYPES, OUTPUT_CTYPES, ROUNDING_ALIASES, ROUNDINGS, IntegerEstimator, ctype_holds,
+    input_ctype,
 )
-from affix.errors import FileFormatError
 from affix.targets import DEFAULT_TARGET, TARGETS
 
 PLAN_FORMAT = "affix.plan/1"
+# The kinds of accuracy budget a plan records (see affix.quantize.budget).
+WORST_CASE = "worst-case"
+RMS_GROWTH = "rms-growth"
 
 
 @dataclass(frozen=True)
@@ -118,94 +120,150 @@ class Plan:
 
     @classmethod
     def from_dict(cls, data, path=None) -> "Plan":
-        files.check_format(data, PLAN_FORMAT, "plan", path)
-        required = (
-            "inputs outputs input_ranges coefficients offsets shifts output_lsb output_ctype "
-            "coef_bits acc_bits rounding gain offset model_sha256"
-        ).split()
-        missing = [k for k in required if k not in data]
-        if missing:
-            raise FileFormatError(f"plan file lacks key(s): {', '.join(missing)}", path)
-        try:
-            plan = cls(
-                inputs=tuple(data["inputs"]),
-                outputs=tuple(data["outputs"]),
-                input_ranges=tuple((int(lo), int(hi)) for lo, hi in data["input_ranges"]),
-                coefficients=tuple(tuple(_int(a) for a in row) for row in data["coefficients"]),
-                offsets=tuple(_int(c) for c in data["offsets"]),
-                shifts=tuple(_int(s) for s in data["shifts"]),
-                output_lsb=tuple(float(v) for v in data["output_lsb"]),
-                output_ctype=data["output_ctype"],
-                coef_bits=_int(data["coef_bits"]),
-                acc_bits=_int(data["acc_bits"]),
-                rounding=rounding_name(data["rounding"]),
-                gain=tuple(tuple(float(v) for v in row) for row in data["gain"]),
-                offset=tuple(float(v) for v in data["offset"]),
-                model_sha256=str(data["model_sha256"]),
-                input_lsb=None if data.get("input_lsb") is None else tuple(data["input_lsb"]),
-                input_ctype=data.get("input_ctype"),
-                target=data.get("target", DEFAULT_TARGET),
-                float_rms=_tuple(data.get("float_rms")),
-                predicted_rms_deviation=_tuple(data.get("predicted_rms_deviation")),
-                predicted_total_rms=_tuple(data.get("predicted_total_rms")),
-                worst_case_deviation=_tuple(data.get("worst_case_deviation")),
-                deviation_parts=data.get("deviation_parts"),
-                accumulator_bound=_tuple(data.get("accumulator_bound")),
-                accumulator_headroom_bits=_tuple(data.get("accumulator_headroom_bits")),
-                budget=data.get("budget"),
-                measured=data.get("measured"),
-                moments_source=data.get("moments_source"),
-                coefficient_method=data.get("coefficient_method"),
-                tool_version=str(data.get("tool_version", "")),
-            )
-            plan.validate()
-        except (ValueError, TypeError) as exc:
-            raise FileFormatError(str(exc), path) from None
-        return plan
-
-    def validate(self) -> None:
-        """Raise ValueError where the plan is inconsistent with itself."""
-        n, m = len(self.outputs), len(self.inputs)
-        if len(self.input_ranges) != m or len(self.coefficients) != n or len(self.gain) != n:
-            raise ValueError("names, ranges, coefficients and gain disagree in shape")
-        for lo, hi in self.input_ranges:
-            if lo > hi:
-                raise ValueError(f"input range {lo}:{hi} is inverted")
-        if self.input_ctype not in INPUT_CTYPES:
-            raise ValueError(f"input_ctype must be one of {', '.join(INPUT_CTYPES)} holding the input box")
-        if not ctype_holds(self.input_ctype, self.input_ranges):
-            raise ValueError(f"an input range lies outside input_ctype {self.input_ctype}")
-        if self.target not in TARGETS:
-            raise ValueError(f"target must be one of {', '.join(TARGETS)}")
-        if self.output_ctype not in OUTPUT_CTYPES:
-            raise ValueError(f"output_ctype must be one of {', '.join(OUTPUT_CTYPES)}")
-        if self.rounding not in ROUNDINGS:
-            raise ValueError(f"rounding must be one of {', '.join(ROUNDINGS)}")
-        if self.coef_bits not in COEF_BITS or self.acc_bits not in ACC_BITS:
-            raise ValueError("coef_bits must be 8, 16 or 32 and acc_bits 32 or 64")
-        if len(self.output_lsb) != n or not all(math.isfinite(v) and v > 0 for v in self.output_lsb):
-            raise ValueError("output_lsb must hold one positive finite value per output")
-        limit = 2 ** (self.coef_bits - 1)
-        if any(not -limit <= a < limit for row in self.coefficients for a in row):
-            raise ValueError(f"a coefficient does not fit {self.coef_bits} bits")
-        estimator = self.integer_estimator()
-        if max(estimator.accumulator_bounds()) >= 2 ** (self.acc_bits - 1):
-            raise ValueError(f"the accumulator bound over the input box does not fit {self.acc_bits} bits")
+        return cls(**PLAN_SCHEMA.load(data, path))
 
     @classmethod
     def load(cls, path) -> "Plan":
         return cls.from_dict(files.read_json(path, "plan"), path)
 
+    def validate(self) -> None:
+        """Raise FileFormatError where this plan breaks its file schema, the
+        box proof included (for plans built in Python rather than read)."""
+        PLAN_SCHEMA.load(self.to_dict())
 
-def _int(value) -> int:
-    if isinstance(value, bool) or not isinstance(value, int):
-        raise ValueError(f"expected an integer, got {value!r}")
-    return value
+
+# --- the integer contract's fields, shared by plan and manifest --------------
+
+_INPUT_LIMITS = (min(lo for lo, _ in INPUT_CTYPES.values()), max(hi for _, hi in INPUT_CTYPES.values()))
+# Beyond the accumulator's width every shift floors to the same -1 or 0, so no
+# plan needs more; the limit keeps 2**shift cheap for any file.
+MAX_SHIFT = 255
+
+
+def prove_integer_contract(values) -> None:
+    """The box proof of :mod:`affix.arithmetic`, re-made from the fields:
+    every range ordered and held by one input type and by the accumulator,
+    every coefficient within coef_bits, |acc + r| within acc_bits over the box."""
+    ranges, acc_bits, coef_bits = values["input_ranges"], values["acc_bits"], values["coef_bits"]
+    acc_limit = 2 ** (acc_bits - 1)
+    for j, (lo, hi) in enumerate(ranges):
+        if lo > hi:
+            schema.fail(f"input_ranges[{j}]", f"is inverted: {lo} > {hi}")
+        if hi >= acc_limit:  # widening to the accumulator must keep the value
+            schema.fail(f"input_ranges[{j}]", f"reaches {hi}, beyond the {acc_bits}-bit accumulator (acc_bits)")
+    if input_ctype(ranges) is None:
+        schema.fail("input_ranges", "no one input type of " + ", ".join(INPUT_CTYPES) + " holds every range")
+    limit = 2 ** (coef_bits - 1)
+    for i, row in enumerate(values["coefficients"]):
+        for j, a in enumerate(row):
+            if not -limit <= a < limit:
+                schema.fail(f"coefficients[{i}][{j}]", f"{a} does not fit coef_bits = {coef_bits}")
+    estimator = IntegerEstimator(values["coefficients"], values["offsets"], values["shifts"], ranges,
+                                 values["output_ctype"], values["rounding"], acc_bits)
+    for name, bound in zip(values["outputs"], estimator.accumulator_bounds()):
+        if bound >= acc_limit:
+            schema.fail("acc_bits", f"output '{name}' reaches |acc + r| = {bound} over the input box (from its "
+                        f"coefficients, offsets, shifts and the input_ranges), beyond the {acc_bits}-bit accumulator")
+
+
+INTEGER_CONTRACT = (
+    schema.Field("inputs", schema.NAMES, size=True),
+    schema.Field("outputs", schema.NAMES, size=True),
+    schema.Field("input_ranges", schema.Array(("inputs", 2), schema.Integer(*_INPUT_LIMITS))),
+    schema.Field("coefficients", schema.Array(("outputs", "inputs"), schema.Integer(-(2**31), 2**31 - 1))),
+    schema.Field("offsets", schema.Array(("outputs",), schema.Integer(-(2**63), 2**63 - 1))),
+    schema.Field("shifts", schema.Array(("outputs",), schema.Integer(0, MAX_SHIFT))),
+    schema.Field("output_lsb", schema.Array(("outputs",), schema.Number(positive=True))),
+    schema.Field("output_ctype", schema.Choice(OUTPUT_CTYPES)),
+    schema.Field("coef_bits", schema.Choice(COEF_BITS)),
+    schema.Field("acc_bits", schema.Choice(ACC_BITS)),
+    schema.Field("rounding", schema.Choice(ROUNDINGS, aliases=ROUNDING_ALIASES)),
+    schema.Field("input_lsb", schema.OrNone(schema.Array(("inputs",), schema.OrNone(schema.Number(positive=True))))),
+)
+
+# --- the rest of the plan file ------------------------------------------------
+
+_PER_OUTPUT = schema.Array(("outputs",), schema.Number())
+_PER_OUTPUT_SIZE = schema.Array(("outputs",), schema.Number(min=0.0))  # an RMS or a largest |deviation|
+_COUNT = schema.Integer(0, 2**63 - 1)
+
+
+def _budget_agrees(values) -> None:
+    if (values["kind"] == RMS_GROWTH) != (values["growth_percent"] is not None):
+        schema.fail("budget.growth_percent", f"must be given exactly for a {RMS_GROWTH} budget")
+    for i, (limit, margin) in enumerate(zip(values["limits"], values["margins"])):
+        if (limit is None) != (margin is None):
+            schema.fail(f"budget.margins[{i}]", "must be null exactly where the limit is")
+    if values["met"] != all(m is None or m >= 0 for m in values["margins"]):
+        schema.fail("budget.met", "disagrees with the margins")
+
+
+_BUDGET = schema.Record(
+    schema.Field("kind", schema.Choice((WORST_CASE, RMS_GROWTH))),
+    schema.Field("limits", schema.Array(("outputs",), schema.OrNone(schema.Number(min=0.0)))),
+    schema.Field("margins", schema.Array(("outputs",), schema.OrNone(schema.Number()))),
+    schema.Field("met", schema.Flag()),
+    schema.Field("growth_percent", schema.OrNone(schema.Number(min=0.0))),
+    schema.Field("default", schema.Flag()),
+    rules=(_budget_agrees,),
+)
+_MEASURED = schema.Mapping(
+    schema.Choice(("random", "corners", "calibration")),
+    schema.Record(
+        schema.Field("rows", _COUNT),
+        schema.Field("rms_deviation", schema.Array(("outputs",), schema.OrNone(schema.Number(min=0.0)))),
+        schema.Field("max_deviation", _PER_OUTPUT_SIZE),
+        schema.Field("predicted_rms_deviation", _PER_OUTPUT_SIZE, default=schema.OMITTED),
+        schema.Field("rows_outside_box", _COUNT, default=schema.OMITTED),
+    ),
+)
+_DEVIATION_PARTS = schema.Record(
+    *(schema.Field(part, _PER_OUTPUT_SIZE)
+      for part in ("coefficients", "coefficients_plain_rounding", "output_rounding", "input_quantization"))
+)
+
+
+def _input_ctype_holds_the_box(values) -> None:
+    """An explicit input type (None: the smallest that holds the box) must hold every range."""
+    if values["input_ctype"] is not None and not ctype_holds(values["input_ctype"], values["input_ranges"]):
+        schema.fail("input_ctype", f"{values['input_ctype']} does not hold every one of the input_ranges")
+
+
+def _recorded_bounds_agree(values) -> None:
+    """accumulator_bound and its headroom are derived: an edited copy would mislead a reader."""
+    bounds = IntegerEstimator.from_mapping(values).accumulator_bounds()
+    recorded = values["accumulator_bound"]
+    if recorded is not None and list(recorded) != bounds:
+        schema.fail("accumulator_bound", f"disagrees with the bound the integers give, {bounds}")
+    headroom = values["accumulator_headroom_bits"]
+    if headroom is not None:
+        exact = [values["acc_bits"] - 1 - (math.log2(b) if b else 0.0) for b in bounds]
+        if not all(math.isclose(h, e, rel_tol=1e-9, abs_tol=1e-9) for h, e in zip(headroom, exact)):
+            schema.fail("accumulator_headroom_bits", "disagrees with acc_bits and the accumulator bound")
+
+
+PLAN_SCHEMA = schema.Schema(
+    "plan",
+    PLAN_FORMAT,
+    schema.Field("tool_version", schema.VERSION),
+    schema.Field("model_sha256", schema.SHA256),
+    *INTEGER_CONTRACT,
+    schema.Field("gain", schema.Array(("outputs", "inputs"), schema.Number())),
+    schema.Field("offset", _PER_OUTPUT),
+    *(schema.Field(key, schema.OrNone(_PER_OUTPUT_SIZE), default=None)
+      for key in ("float_rms", "predicted_rms_deviation", "predicted_total_rms", "worst_case_deviation")),
+    schema.Field("deviation_parts", schema.OrNone(_DEVIATION_PARTS), default=None),
+    schema.Field("accumulator_bound", schema.OrNone(schema.Array(("outputs",), schema.Integer(0, 2**64))), default=None),
+    schema.Field("accumulator_headroom_bits", schema.OrNone(_PER_OUTPUT), default=None),
+    schema.Field("budget", schema.OrNone(_BUDGET), default=None),
+    schema.Field("measured", schema.OrNone(_MEASURED), default=None),
+    schema.Field("moments_source", schema.OrNone(schema.Choice(("calibration", "uniform-box"))), default=None),
+    schema.Field("coefficient_method", schema.OrNone(schema.Choice(("plain", "error-feedback"))), default=None),
+    schema.Field("input_ctype", schema.OrNone(schema.Choice(INPUT_CTYPES)), default=None),
+    schema.Field("target", schema.Choice(TARGETS), default=DEFAULT_TARGET),
+    rules=(prove_integer_contract, _input_ctype_holds_the_box, _recorded_bounds_agree),
+)
 
 
 def _list(value):
     return None if value is None else list(value)
-
-
-def _tuple(value):
-    return None if value is None else tuple(value)

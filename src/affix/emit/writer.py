@@ -32,6 +32,7 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
     if arith == "float32" and "micropython" in languages:
         raise UsageError("float32 arithmetic is a C target only (MicroPython output is integer)", "arith")
     check_names(name, plan.inputs, plan.outputs)
+    plan.validate()
 
     rendered: dict[str, dict[str, str]] = {}
     notes: list[str] = []

@@ -7,8 +7,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-WORST_CASE = "worst-case"
-RMS_GROWTH = "rms-growth"
+from affix.plan import RMS_GROWTH, WORST_CASE
+
 DEFAULT_GROWTH_PERCENT = 1.0  # used, best effort, when the user names no budget
 
 
