@@ -50,3 +50,17 @@ def run_affix(*args, cwd=None, **options) -> subprocess.CompletedProcess:
 @pytest.fixture
 def affix_cli():
     return run_affix
+
+
+def rehash(manifest_path) -> None:
+    """Record the current SHA-256 of every file a manifest lists: what a faulty
+    emitter would have written, so verification must find the fault by running
+    the code rather than by the hash."""
+    import hashlib
+    import json
+
+    manifest_path = Path(manifest_path)
+    manifest = json.loads(manifest_path.read_text())
+    for filename in manifest["file_sha256"]:
+        manifest["file_sha256"][filename] = hashlib.sha256((manifest_path.parent / filename).read_bytes()).hexdigest()
+    manifest_path.write_text(json.dumps(manifest, indent=2) + "\n")

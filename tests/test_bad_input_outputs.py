@@ -217,9 +217,6 @@ FOLDER_TARGETS = {
     "the plan inside, under a name emit writes": (
         lambda w: (w / "fw").mkdir() or shutil.copy(w / "plan.json", w / "fw" / "probe.c"), "fw",
         "'fw/probe.c' is an input of this command"),
-    "the plan inside, under a name an earlier emit wrote": (
-        lambda w: _earlier_emit(w) or shutil.copy(w / "plan.json", w / "fw" / "old.py"), "fw",
-        "'fw/old.py' is an input of this command"),
     "the plan inside, reached through a link to the folder": (
         lambda w: (w / "fw").mkdir() or (w / "fwlink").symlink_to("fw") or shutil.copy(w / "plan.json", w / "fw" / "probe.h"),
         "fwlink", "'fwlink/probe.h' is an input of this command"),
@@ -245,6 +242,17 @@ def test_emit_refuses_a_bad_out_and_changes_nothing(work, case):
     result = run_affix("emit", plan, "--lang", "all", "--name", "probe", "--out", out, cwd=work,
                        preexec_fn=without_write_override)
     assert_refused(result, fragment, before, work)
+
+
+@pytest.mark.bad_input("emit")
+def test_emit_refuses_to_remove_the_plan_where_an_earlier_emit_of_the_name_wrote(work):
+    # An emit of fewer languages removes what the earlier emit of that name
+    # wrote: never the plan it reads.
+    _earlier_emit(work, lang="all", name="probe")
+    shutil.copy(work / "plan.json", work / "fw" / "probe.py")
+    before = snapshot(work)
+    result = run_affix("emit", "fw/probe.py", "--lang", "c", "--name", "probe", "--out", "fw", cwd=work)
+    assert_refused(result, "'fw/probe.py' is an input of this command", before, work)
 
 
 def _file_size_limit(limit):
@@ -287,17 +295,19 @@ def test_demo_refuses_a_bad_outdir(work, case):
 
 # --- what a successful emit leaves -------------------------------------------------------------------
 
-def test_emit_replaces_an_earlier_estimator_and_leaves_other_files_alone(work):
+def test_emit_beside_another_estimator_leaves_it_and_other_files_alone(work):
     require("gcc")
+    require("micropython")
     _earlier_emit(work, lang="all", name="old")
     (work / "fw" / "README.txt").write_text("the user's own notes\n")
     result = run_affix("emit", "plan.json", "--lang", "c", "--name", "probe", "--out", "fw", cwd=work)
     assert result.returncode == 0, result.stderr
     assert sorted(p.name for p in (work / "fw").iterdir()) == [
-        "README.txt", "probe.c", "probe.h", "probe.manifest.json"]
+        "README.txt", "old.c", "old.h", "old.manifest.json", "old.py", "probe.c", "probe.h", "probe.manifest.json"]
     assert (work / "fw" / "README.txt").read_text() == "the user's own notes\n"
-    verified = run_affix("verify", "fw", "--vectors", "1000", cwd=work)
+    verified = run_affix("verify", "fw", "--vectors", "1000", cwd=work)  # each manifest in the folder
     assert verified.returncode == 0, verified.stdout + verified.stderr
+    assert "evaluations of old" in verified.stdout and "evaluations of probe" in verified.stdout
 
 
 @pytest.mark.bad_input("emit")

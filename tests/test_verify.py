@@ -15,7 +15,7 @@ from affix.emit.writer import emit
 from affix.errors import VerificationError
 from affix.verify.check import verify
 from affix.verify.vectors import corners, vector_sets
-from conftest import require, run_affix
+from conftest import rehash, require, run_affix
 from plans import random_plan
 
 
@@ -66,6 +66,7 @@ def test_cli_emit_then_verify_passes(tmp_path):
     assert lines[-1].startswith("PASS: 0 mismatches")
 
 
+@pytest.mark.bad_input("verify")
 def test_a_wrong_constant_is_caught_and_shown(tmp_path):
     require("gcc")
     plan = random_plan(4, 3, 2, ranges="int16")
@@ -75,6 +76,7 @@ def test_a_wrong_constant_is_caught_and_shown(tmp_path):
     text = source.read_text()
     assert f"{{ {first}," in text
     source.write_text(text.replace(f"{{ {first},", f"{{ {first // 2 + 77},", 1))
+    rehash(tmp_path / "probe.manifest.json")
     with pytest.raises(VerificationError) as caught:
         verify(tmp_path, vectors=5000)
     report = caught.value.report
@@ -87,6 +89,7 @@ def test_a_wrong_constant_is_caught_and_shown(tmp_path):
     assert done.returncode == 1
     assert "expected" in done.stdout and "FAIL" in done.stdout
     assert done.stderr.startswith("affix: error:") and len(done.stderr.strip().splitlines()) == 1
+    assert "C probe_estimate()" in done.stderr  # the entry point at fault
 
 
 @pytest.mark.bad_input("verify")
@@ -102,7 +105,7 @@ def test_float32_is_checked_bit_for_bit(tmp_path, style):
     plan = random_plan(9, 4, 3, ranges="uint16")
     emit(plan, lang="c", arith="float32", style=style, name="probe", out_dir=tmp_path)
     report = verify(tmp_path, vectors=50000)  # raises VerificationError on any mismatch
-    assert [r.artefact for r in report.results][0] == f"C probe.c (float32, {style})"
+    assert [r.artefact for r in report.results][0] == f"C probe_estimate() (float32, {style})"
     assert report.evaluations > 50000
 
 
@@ -148,10 +151,12 @@ def test_verify_runs_micropython_plain_and_viper(tmp_path):
     assert json.loads((tmp_path / "probe.manifest.json").read_text())["files"] == manifest["files"]
     report = verify(tmp_path, vectors=10**4)
     artefacts = {r.artefact for r in report.results}
-    assert {"MicroPython probe.py (plain)", "MicroPython probe.py (viper)"} <= artefacts
+    # Every entry point each file defines.
+    assert {"C probe_estimate() (int, table)", "C probe_selftest()", "MicroPython probe.py estimate()",
+            "MicroPython probe.py estimate_into()", "MicroPython probe.py estimate_into_viper()",
+            "MicroPython probe.py self_test()"} == artefacts
     mp_random = [r for r in report.results if r.artefact.startswith("MicroPython") and r.vector_set == "random"]
-    assert len(mp_random) == 2  # plain and viper: all() of nothing would pass
-    assert all(r.count == 10**4 for r in mp_random)  # verify raised had any mismatched
+    assert len(mp_random) == 3 and all(r.count == 10**4 and r.mismatches == 0 for r in mp_random)
 
 
 def test_report_as_plain_data_keeps_every_count():
@@ -164,3 +169,7 @@ def test_report_as_plain_data_keeps_every_count():
     assert [r["vectors"] for r in data["results"]] == [8, 100]
     assert data["results"][1]["examples"] == [[[1], [2], [3]]]
     json.dumps(data)  # plain data only
+    # An entry point that fails without a mismatch fails the report all the same.
+    crashed = Report("probe", [Result("MicroPython probe.py estimate()", "corners", 8, 0, error="raised")])
+    assert not crashed.passed and crashed.to_dict()["passed"] is False
+    assert crashed.failures() == ["MicroPython probe.py estimate(): raised"]

@@ -5,7 +5,7 @@ The CLI prints ``affix: error: <message>`` on stderr and exits with
 escapes is a bug in affix, not a user error.
 
 Exit statuses:
-    1  verification found mismatches (the emitted code is wrong)
+    1  verification failed (the emitted code is wrong, or not what was emitted)
     2  bad input: data, model/plan/manifest file, option value
     3  the accuracy budget cannot be met by any configuration
     4  an external tool the command needs is missing or failed
@@ -113,9 +113,15 @@ class BudgetError(AffixError):
 
 
 class VerificationError(AffixError):
-    """Emitted code and integer reference disagree on at least one vector."""
+    """Emitted code is wrong: it disagrees with the reference, an entry point
+    fails, or its files are not the ones the manifest hashed.  ``report`` is
+    the verification report where one was made."""
 
     exit_code = 1
+
+    def __init__(self, message: str, report=None):
+        super().__init__(message)
+        self.report = report
 
 
 class ToolError(AffixError):

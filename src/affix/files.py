@@ -12,7 +12,8 @@ declares its inputs with :func:`protected`, and every write below checks
 against them.
 
 Reads turn every way a JSON file can be unreadable into one FileFormatError
-naming the file.
+naming the file; what the content must be is each file type's schema
+(:mod:`affix.schema`).
 """
 from __future__ import annotations
 
@@ -230,20 +231,34 @@ class FileSet:
 
 
 def read_json(path, what: str):
-    """The parsed content of a JSON file; ``what`` ("model", "plan", ...) words the missing-file error."""
+    """The parsed content of a JSON file; ``what`` ("model", "plan", ...) words the missing-file error.
+
+    Strict JSON: NaN and Infinity (which Python's json module reads by
+    default) and a key given twice (of which it keeps the last, silently)
+    are refused.
+    """
     path = Path(path)
     try:
-        return json.loads(path.read_text())
+        return json.loads(path.read_text(encoding="utf-8"), parse_constant=_refuse_constant,
+                          object_pairs_hook=_unique_keys)
     except FileNotFoundError:
         raise FileFormatError(f"no such {what} file", path) from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+    except (OSError, UnicodeDecodeError, ValueError) as exc:  # ValueError: bad JSON, over-long integers
         raise FileFormatError(f"not readable as JSON ({exc})", path) from None
+    except RecursionError:
+        raise FileFormatError("not readable as JSON (nested too deeply)", path) from None
 
 
-def check_format(data, expected: str, what: str, path) -> dict:
-    """``data`` itself if it is a dict tagged ``"format": expected``, else a FileFormatError."""
-    if not isinstance(data, dict) or data.get("format") != expected:
-        raise FileFormatError(f'not an affix {what} file (expected "format": "{expected}")', path)
+def _refuse_constant(word: str):
+    raise ValueError(f"{word} is not JSON")
+
+
+def _unique_keys(pairs) -> dict:
+    data = {}
+    for key, value in pairs:
+        if key in data:
+            raise ValueError(f"key '{key}' appears twice in one object")
+        data[key] = value
     return data
 
 

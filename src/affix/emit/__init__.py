@@ -3,7 +3,7 @@
 # The choices of 'affix emit', here so the CLI can offer them without
 # loading the renderers.
 MANIFEST_FORMAT = "affix.manifest/1"
-MANIFEST_SUFFIX = ".manifest.json"  # NAME.manifest.json, one per emit folder
+MANIFEST_SUFFIX = ".manifest.json"  # NAME.manifest.json, one per estimator in an emit folder
 LANGUAGES = ("c", "micropython")
 ARITHS = ("int", "float32")
 STYLES = ("table", "unrolled")

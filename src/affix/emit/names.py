@@ -73,11 +73,20 @@ PYTHON_NAMES = frozenset(keyword.kwlist) | frozenset(getattr(keyword, "softkwlis
 EXTERNAL_LENGTH = 31
 INTERNAL_LENGTH = 63
 
+# Generated identifiers (DEVELOPERS.md, "Generated identifiers"): the
+# estimator name, '_', then a fixed word or a category infix and a user's
+# name.  The infixes are prefix-free among themselves and no fixed word starts
+# with one, so no choice of names makes two identifiers equal; the templates
+# take them from the context (infix_in, infix_out) and tests/test_names.py
+# checks the rule on the rendered templates.
+INFIX_IN = "in_"  # NAME_in_<input>: an input's position in y[]
+INFIX_OUT = "out_"  # NAME_out_<output>: an output's position in x[]
+INFIXES = (INFIX_IN, INFIX_OUT)
+
 # The longest suffix the C target appends to the estimator name for an
-# external symbol ("NAME_selftest"); enumeration constants are
-# "NAME_in_<input>" / "NAME_out_<output>".
+# external symbol ("NAME_selftest"), and the longest before a user's name.
 _EXTERNAL_SUFFIX = len("_selftest")
-_ENUM_INFIX = len("_out_")
+_INFIX_LENGTH = 1 + max(len(infix) for infix in INFIXES)
 
 
 def check_identifier(name, what: str, max_length: int = INTERNAL_LENGTH) -> str:
@@ -107,10 +116,23 @@ def check_names(name: str, inputs, outputs) -> None:
         seen = set()
         for column in names:
             what = f"{kind} name {_shown(column)}"
-            check_identifier(column, what, INTERNAL_LENGTH - len(name) - _ENUM_INFIX)
+            check_identifier(column, what, INTERNAL_LENGTH - len(name) - _INFIX_LENGTH)
             if column in seen:
                 raise UsageError(f"appears twice among the {kind}s", what)
             seen.add(column)
+
+
+def names_could_clash(name: str, other: str) -> bool:
+    """True when two estimators' generated identifiers could coincide.
+
+    Every identifier of estimator ``a`` starts with ``a_`` (or ``A_``), so
+    two estimators can clash only when one name followed by '_' starts the
+    other's, ignoring case ('est' and 'est_in': est's input 'estimate' gives
+    est_in_estimate, est_in's function; 'est' and 'EST': both define
+    EST_N_INPUTS, and their files coincide on a case-insensitive file system).
+    """
+    a, b = name.lower() + "_", other.lower() + "_"
+    return name != other and (a.startswith(b) or b.startswith(a))
 
 
 def _reserved_by(name: str) -> str | None:

@@ -11,8 +11,9 @@ from pathlib import Path
 
 from affix import files
 from affix.arithmetic import ROUNDING_RULES
-from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, MANIFEST_SUFFIX, STYLES
-from affix.emit.names import check_names
+from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, STYLES
+from affix.emit.manifest import estimator_name, generated_files, manifest_name, manifests_in, sha256_of
+from affix.emit.names import check_names, names_could_clash
 from affix.errors import UsageError
 
 
@@ -22,8 +23,9 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
 
     Everything is rendered and checked before the first file is written, and
     the files land together (:class:`affix.files.FileSet`): an error leaves
-    ``out_dir`` as it was, and success replaces what an earlier emit wrote
-    there, leaving any other file alone.
+    ``out_dir`` as it was, and success replaces what an earlier emit of this
+    estimator wrote there, leaving any other file alone, other estimators'
+    included (their names may not clash with ``name``: see names_could_clash).
     """
     languages = LANGUAGES if lang == "all" else (lang,)
     _check_choice(lang, LANGUAGES + ("all",), "lang")
@@ -32,6 +34,7 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
     if arith == "float32" and "micropython" in languages:
         raise UsageError("float32 arithmetic is a C target only (MicroPython output is integer)", "arith")
     check_names(name, plan.inputs, plan.outputs)
+    _check_neighbours(name, Path(out_dir))
     plan.validate()
 
     rendered: dict[str, dict[str, str]] = {}
@@ -47,8 +50,8 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
         rendered["micropython"] = render_micropython(plan, name)
         notes += micropython_notes(plan)
 
-    manifest = manifest_for(plan, name, arith, style, {k: sorted(v) for k, v in rendered.items()}, notes)
-    with files.FileSet(out_dir, parameter="out_dir", earlier=emitted_before) as staged:
+    manifest = manifest_for(plan, name, arith, style, rendered, notes)
+    with files.FileSet(out_dir, parameter="out_dir", earlier=lambda folder: emitted_before(folder, name)) as staged:
         for sources in rendered.values():
             for filename, text in sources.items():
                 staged.write_text(filename, text)
@@ -56,37 +59,38 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
     return manifest
 
 
-def manifest_name(name: str) -> str:
-    return f"{name}{MANIFEST_SUFFIX}"
+def emitted_before(out_dir: Path, name: str | None = None) -> set[str]:
+    """What earlier emits of ``name`` (None: of any estimator) left in ``out_dir``:
+    the manifest and the files it lists.
 
-
-def emitted_before(out_dir: Path) -> set[str]:
-    """What earlier emits left in ``out_dir``: every manifest and the files each lists.
-
-    A folder holds one estimator (verify reads exactly one manifest), so an
-    emit replaces all of these; a manifest too garbled to list its files
-    still goes, and its files are left alone.  Only names an emit of that
-    estimator can have written count (NAME.*), so an edited manifest cannot
-    make an emit remove any other file of the folder.
+    An emit replaces these; a manifest too garbled to list its files still
+    goes, and its files are left alone.  Only names an emit of that
+    estimator can have written count, so an edited manifest cannot make an
+    emit remove any other file of the folder.
     """
     names = set()
-    for path in out_dir.glob(f"*{MANIFEST_SUFFIX}"):
+    for path in manifests_in(out_dir):
+        stem = estimator_name(path)
+        if name is not None and stem != name:
+            continue
         names.add(path.name)
-        stem = path.name[: -len(MANIFEST_SUFFIX)]
         try:
             listed = json.loads(path.read_text()).get("files", {}).values()
-            names.update(n for group in listed for n in group if isinstance(n, str) and n.startswith(f"{stem}."))
+            names.update(n for group in listed for n in group if isinstance(n, str) and n in generated_files(stem))
         except (OSError, UnicodeDecodeError, ValueError, AttributeError, TypeError):
             continue
     return names
 
 
-def manifest_for(plan, name: str, arith: str, style: str, file_names: dict, notes: list[str]) -> dict:
+def manifest_for(plan, name: str, arith: str, style: str, rendered: dict, notes: list[str]) -> dict:
+    """The manifest of the ``rendered`` files, {language: {filename: text}}."""
     manifest = {
         "format": MANIFEST_FORMAT,
         "name": name,
         "function": f"{name}_estimate",
-        "files": file_names,
+        "files": {lang: sorted(sources) for lang, sources in rendered.items()},
+        "file_sha256": {f: sha256_of(text.encode("utf-8"))
+                        for sources in rendered.values() for f, text in sorted(sources.items())},
         "arith": arith,
         "style": style,
         "input_ctype": plan.input_ctype,
@@ -115,6 +119,18 @@ def manifest_for(plan, name: str, arith: str, style: str, file_names: dict, note
         manifest["float_gain"] = [list(row) for row in plan.gain]
         manifest["float_offset"] = list(plan.offset)
     return manifest
+
+
+def _check_neighbours(name: str, out_dir: Path) -> None:
+    """Refuse a name whose C identifiers could clash with another estimator's in the same folder."""
+    for path in manifests_in(out_dir):
+        other = estimator_name(path)
+        if names_could_clash(name, other):
+            raise UsageError(
+                f"'{name}' and the estimator '{other}' in {out_dir} could generate the same C identifiers "
+                "(one name and '_' start the other, ignoring case); choose another name or folder",
+                "name",
+            )
 
 
 def _check_choice(value: str, choices, option: str) -> None:

@@ -1,5 +1,6 @@
 """Build emitted C for verification: a cffi (API mode) extension with a batch
-entry point, and a stand-alone driver program for sanitizer runs.
+entry point and the emitted self-test compiled in, and a stand-alone driver
+program for sanitizer runs.
 
 The extension is compiled once per distinct source into a cache folder (never
 into the user's emit folder): ``$AFFIX_CACHE_DIR``, else
@@ -7,6 +8,11 @@ into the user's emit folder): ``$AFFIX_CACHE_DIR``, else
 module per distinct emitted source; deleting the folder is always safe).  One call of
 the batch function evaluates a whole numpy buffer (``ffi.from_buffer``), so
 there is no Python call per vector.
+
+Before building, the emitted C is compiled on its own: where that fails the
+code is wrong (VerificationError, exit 1), where only the extension fails the
+set-up is (ToolError, exit 4).  Either way the compiler's messages go to
+``NAME-KEY.log`` in the same cache folder, and the error names that file.
 """
 from __future__ import annotations
 
@@ -17,13 +23,14 @@ import shutil
 import subprocess
 import sys
 import tempfile
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from affix.emit.templates import render
-from affix.errors import FileFormatError, ToolError
+from affix.errors import FileFormatError, ToolError, VerificationError
 
 DTYPES = {
     "int8_t": np.int8,
@@ -64,13 +71,22 @@ class Signature:
         return {"name": self.name, "input_ctype": self.input_ctype, "output_ctype": self.output_ctype}
 
 
+class CompileFailure(VerificationError):
+    """The emitted C does not compile: the code is wrong (the compiler is there)."""
+
+
 class CEstimator:
-    """The emitted C function, loaded through cffi; ``evaluate`` takes integer rows."""
+    """The emitted C, loaded through cffi: ``evaluate`` takes integer rows, ``selftest`` runs NAME_selftest()."""
 
     def __init__(self, module, signature: Signature):
         self._ffi, self._lib = module.ffi, module.lib
         self.signature = signature
         self._batch = getattr(self._lib, f"{signature.name}_verify_batch")
+        self._selftest = getattr(self._lib, f"{signature.name}_selftest")
+
+    def selftest(self) -> int:
+        """The number of wrong outputs the emitted self-test reports (0: it passes)."""
+        return int(self._selftest())
 
     def evaluate(self, vectors) -> np.ndarray:
         sig = self.signature
@@ -85,16 +101,17 @@ class CEstimator:
 
 
 def load_c(emit_dir, manifest, *, cache_dir=None) -> CEstimator:
-    """Compile (or reuse from the cache) and load the emitted C of ``manifest``."""
+    """Compile (or reuse from the cache) and load the emitted C of ``manifest``, self-test included."""
     import cffi
 
     signature = Signature.from_manifest(manifest)
     source, header = _emitted_sources(Path(emit_dir), manifest)
     batch = render("c/verify_batch.c.jinja", declaration_only=False, **signature.template_context)
     cdef = render("c/verify_batch.c.jinja", declaration_only=True, **signature.template_context)
+    flags = [*COMPILE_FLAGS, f"-D{signature.name.upper()}_SELFTEST"]
     key = hashlib.sha256(
         "\0".join(
-            [source.read_text(), header.read_text(), batch, cdef, " ".join(COMPILE_FLAGS), sys.version, cffi.__version__]
+            [source.read_text(), header.read_text(), batch, cdef, " ".join(flags), sys.version, cffi.__version__]
         ).encode()
     ).hexdigest()[:20]
     module_name = f"_affix_verify_{key}"
@@ -102,7 +119,9 @@ def load_c(emit_dir, manifest, *, cache_dir=None) -> CEstimator:
     cache.mkdir(parents=True, exist_ok=True)
     built = next(cache.glob(f"{module_name}.*.so"), None) or next(cache.glob(f"{module_name}.so"), None)
     if built is None:
-        built = _compile(cffi, module_name, cdef, batch, source, header, cache)
+        log = cache / f"{signature.name}-{key}.log"
+        _check_compiles(source, header, flags, log)
+        built = _compile(cffi, module_name, cdef, batch, source, header, flags, cache, log)
     spec = importlib.util.spec_from_file_location(module_name, built)
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)
@@ -154,7 +173,18 @@ def _emitted_sources(emit_dir: Path, manifest) -> tuple[Path, Path]:
     return source, header
 
 
-def _compile(cffi, module_name, cdef, batch, source: Path, header: Path, cache: Path) -> Path:
+def _check_compiles(source: Path, header: Path, flags, log: Path) -> None:
+    """Compile the emitted C alone; CompileFailure (messages in ``log``) where it does not."""
+    with tempfile.TemporaryDirectory(prefix="affix-cc-") as tmp:
+        command = [_compiler(), *flags, f"-I{header.parent}", "-c", str(source), "-o", str(Path(tmp) / "check.o")]
+        done = subprocess.run(command, capture_output=True, text=True, timeout=600)
+    if done.returncode != 0:
+        log.write_text(f"$ {' '.join(command)}\n{done.stdout}{done.stderr}")
+        raise CompileFailure(f"{source} does not compile ({Path(command[0]).name} {' '.join(flags)}); "
+                             f"the compiler's messages are in {log}")
+
+
+def _compile(cffi, module_name, cdef, batch, source: Path, header: Path, flags, cache: Path, log: Path) -> Path:
     ffi = cffi.FFI()
     ffi.cdef(cdef)
     ffi.set_source(
@@ -162,16 +192,38 @@ def _compile(cffi, module_name, cdef, batch, source: Path, header: Path, cache: 
         batch,
         sources=[str(source)],
         include_dirs=[str(header.parent)],
-        extra_compile_args=list(COMPILE_FLAGS),
+        extra_compile_args=list(flags),
     )
     with tempfile.TemporaryDirectory(prefix="affix-cffi-", dir=cache) as tmp:
         try:
-            built = Path(ffi.compile(tmpdir=tmp, verbose=False))
+            with _output_to(log):  # the compiler writes to the inherited stdout/stderr
+                built = Path(ffi.compile(tmpdir=tmp, verbose=False))
         except Exception as exc:  # distutils reports compiler failures as its own error types
-            raise ToolError(f"building {source.name} with cffi failed: {exc}") from None
+            raise ToolError(f"building the cffi test module for {source.name} failed ({type(exc).__name__}; "
+                            f"the emitted C itself compiles, so look at Python's headers and the compiler "
+                            f"set-up): the messages are in {log}") from None
         target = cache / built.name
         os.replace(built, target)  # atomic: a concurrent build of the same source is harmless
     return target
+
+
+@contextmanager
+def _output_to(path: Path):
+    """Point file descriptors 1 and 2, which child processes inherit, at ``path`` for a while."""
+    sys.stdout.flush()
+    sys.stderr.flush()
+    saved = os.dup(1), os.dup(2)
+    try:
+        with open(path, "ab") as log:
+            os.dup2(log.fileno(), 1)
+            os.dup2(log.fileno(), 2)
+            yield
+    finally:
+        sys.stdout.flush()
+        sys.stderr.flush()
+        for fd, original in zip((1, 2), saved):
+            os.dup2(original, fd)
+            os.close(original)
 
 
 def _compiler() -> str:

@@ -1,5 +1,13 @@
-"""Verify an emit folder: run every emitted artefact over the vector sets and
-compare with the reference rebuilt from the manifest, bit for bit.
+"""Verify an emit: check its files against the manifest's hashes, then run
+every entry point of every emitted file over the vector sets and compare with
+the reference rebuilt from the manifest, bit for bit.
+
+Entry points: in C, ``NAME_estimate()`` (through a batch wrapper) and
+``NAME_selftest()``; in MicroPython, ``estimate``, ``estimate_into``,
+``estimate_into_viper`` (where the emitter writes it) and ``self_test``, and
+the module must cross-compile with mpy-cross.  An entry point that cannot
+run (the C does not compile, the module does not import, a function raises)
+is a failed result of the report, like a mismatch.
 
 The integer reference is :class:`affix.arithmetic.IntegerEstimator`; float32
 code is compared with :class:`affix.float32_arithmetic.Float32Estimator` by
@@ -13,29 +21,34 @@ from pathlib import Path
 
 import numpy as np
 
-from affix import files
 from affix.arithmetic import IntegerEstimator
-from affix.emit import MANIFEST_FORMAT
+from affix.emit.manifest import generated_files, load_manifest, manifests_in, sha256_of
 from affix.errors import FileFormatError, VerificationError
 from affix.float32_arithmetic import Float32Estimator
-from affix.targets import DEFAULT_TARGET, get_target
-from affix.verify.c_build import COMPILE_FLAGS, load_c
+from affix.targets import get_target
+from affix.verify.c_build import COMPILE_FLAGS, CompileFailure, load_c
 from affix.verify.vectors import calibration_vectors, vector_sets
 
 SHOWN_MISMATCHES = 5
-MICROPYTHON_VECTORS = 10**4
-DEFAULT_MPY_MARCH = "armv7emsp"  # the native code checked where the plan's target runs no MicroPython  # per vector set and variant: the runtime is an interpreter
+MICROPYTHON_VECTORS = 10**4  # per vector set and variant: the runtime is an interpreter
+DEFAULT_MPY_MARCH = "armv7emsp"  # the native code checked where the plan's target runs no MicroPython
+SELF_TEST = "self-test"  # the vector set of a self-test: the known vectors built into the code
 
 
 @dataclass
 class Result:
-    """One artefact over one vector set."""
+    """One entry point over one vector set (or its own self-test)."""
 
-    artefact: str
+    artefact: str  # the entry point: "C probe_estimate() (int, table)", "MicroPython probe.py estimate()"
     vector_set: str
     count: int
     mismatches: int
     examples: list = field(default_factory=list)  # (inputs, expected, actual) of the first mismatches
+    error: str | None = None  # why the entry point failed other than by a mismatch
+
+    @property
+    def failed(self) -> bool:
+        return self.mismatches > 0 or self.error is not None
 
 
 @dataclass
@@ -52,16 +65,30 @@ class Report:
     def evaluations(self) -> int:
         return sum(r.count for r in self.results)
 
+    @property
+    def passed(self) -> bool:
+        return not any(r.failed for r in self.results)
+
+    def failures(self) -> list[str]:
+        """One phrase per failing entry point, in report order."""
+        phrases: dict[str, list[str]] = {}
+        for r in self.results:
+            if r.failed:
+                phrases.setdefault(r.artefact, []).append(
+                    r.error if r.error is not None else f"{r.mismatches} mismatches ({r.vector_set})"
+                )
+        return [f"{artefact}: {', '.join(what)}" for artefact, what in phrases.items()]
+
     def to_dict(self) -> dict:
         """The report as plain data (what a build keeps as verification.json)."""
         return {
             "name": self.name,
-            "passed": self.mismatches == 0,
+            "passed": self.passed,
             "mismatches": self.mismatches,
             "evaluations": self.evaluations,
             "results": [
                 {"artefact": r.artefact, "vector_set": r.vector_set, "vectors": r.count,
-                 "mismatches": r.mismatches, "examples": [list(e) for e in r.examples]}
+                 "mismatches": r.mismatches, "examples": [list(e) for e in r.examples], "error": r.error}
                 for r in self.results
             ],
             "notes": list(self.notes),
@@ -69,93 +96,136 @@ class Report:
 
     def text(self) -> str:
         width = max(len(r.artefact) for r in self.results)
-        lines = [f"{'artefact':<{width}}  {'vector set':<16} {'vectors':>10} {'mismatches':>10}"]
+        lines = [f"{'entry point':<{width}}  {'vector set':<16} {'vectors':>10} {'mismatches':>10}"]
         for r in self.results:
             lines.append(f"{r.artefact:<{width}}  {r.vector_set:<16} {r.count:>10} {r.mismatches:>10}")
             for y, expected, actual in r.examples:
                 lines.append(f"    y = {y}: expected {expected}, got {actual}")
+            if r.error is not None:
+                lines.append(f"    FAILED: {r.error}")
         lines += self.notes
-        verdict = "PASS" if self.mismatches == 0 else "FAIL"
+        verdict = "PASS" if self.passed else "FAIL"
         lines.append(f"{verdict}: {self.mismatches} mismatches in {self.evaluations} evaluations of {self.name}")
         return "\n".join(lines)
 
 
-def find_manifest(out_dir) -> tuple[Path, dict]:
-    out_dir = Path(out_dir)
-    found = sorted(out_dir.glob("*.manifest.json"))
-    if len(found) != 1:
-        what = "no" if not found else f"{len(found)}"
-        raise FileFormatError(f"{what} *.manifest.json files (expected exactly one; run 'affix emit')", out_dir)
-    manifest = files.read_json(found[0], "manifest")
-    files.check_format(manifest, MANIFEST_FORMAT, "manifest", found[0])
-    return found[0], manifest
+def find_manifest(target) -> tuple[Path, dict]:
+    """The manifest ``target`` names (a manifest file, or a folder holding exactly one), checked."""
+    target = Path(target)
+    if target.is_dir():
+        found = manifests_in(target)
+        if not found:
+            raise FileFormatError("holds no *.manifest.json (the file 'affix emit' writes beside the code)", target)
+        if len(found) > 1:
+            raise FileFormatError(f"holds {len(found)} manifests ({', '.join(p.name for p in found)}): name one "
+                                  "of them, or verify the folder from the command line to check each", target)
+        target = found[0]
+    return target, load_manifest(target)
+
+
+def check_files(folder: Path, manifest) -> None:
+    """The folder holds exactly the files the manifest hashed: none missing or changed,
+    and no file an emit of this estimator could write present but unlisted (put there by hand)."""
+    hashes = manifest["file_sha256"]
+    for filename in generated_files(manifest["name"]):
+        path = folder / filename
+        if filename not in hashes:
+            if path.exists():
+                raise VerificationError(f"{path}: not in {manifest['name']}'s manifest, so not what was emitted: "
+                                        "remove it, or emit the languages you need again")
+        elif not path.is_file():
+            raise VerificationError(f"{path}: listed in the manifest but missing")
+        elif sha256_of(path.read_bytes()) != hashes[filename]:
+            raise VerificationError(f"{path}: its SHA-256 differs from the manifest's (changed after emit): "
+                                    "emit again rather than edit")
 
 
 def verify(
-    out_dir, *, vectors: int = 10**6, data=None, seed: int = 0, micropython_vectors: int = MICROPYTHON_VECTORS,
+    target, *, vectors: int = 10**6, data=None, seed: int = 0, micropython_vectors: int = MICROPYTHON_VECTORS,
     cache_dir=None,
 ) -> Report:
-    """Check every artefact in ``out_dir``; the report, or VerificationError
-    (carrying the report as ``.report``) at any mismatch.
+    """Check the emit that ``target`` names (a manifest file, or a folder with one
+    manifest); the report, or VerificationError (carrying the report as
+    ``.report`` where one was made) at any failure.
 
     The MicroPython runtime sees at most ``micropython_vectors`` of each set.
     """
-    _, manifest = find_manifest(out_dir)
-    try:
-        integer = IntegerEstimator.from_mapping(manifest)
-        float32 = Float32Estimator.from_mapping(manifest) if manifest["arith"] == "float32" else None
-    except (KeyError, TypeError, ValueError) as exc:
-        raise FileFormatError(f"manifest lacks or garbles {exc}", out_dir) from None
+    path, manifest = find_manifest(target)
+    folder = path.parent
+    check_files(folder, manifest)
+    integer = IntegerEstimator.from_mapping(manifest)
+    float32 = Float32Estimator.from_mapping(manifest) if manifest["arith"] == "float32" else None
     sets = vector_sets(manifest["input_ranges"], manifest["input_ctype"], n_random=vectors, seed=seed)
     if data is not None:
         sets["calibration"] = calibration_vectors(
-            data, manifest["inputs"], manifest["input_ctype"], manifest.get("input_lsb")
+            data, manifest["inputs"], manifest["input_ctype"], manifest["input_lsb"]
         )
     results: list[Result] = []
-    files = manifest["files"]
-    if "c" in files:
-        results += _check_c(out_dir, manifest, sets, float32 or integer, cache_dir)
-    if "micropython" in files:
-        results += _check_micropython(out_dir, manifest, sets, integer, micropython_vectors)
-    notes = [f"note: {n}" for n in manifest.get("notes", [])]
-    if "c" in files:
+    listed = manifest["files"]
+    if "c" in listed:
+        results += _check_c(folder, manifest, sets, float32 or integer, cache_dir)
+    if "micropython" in listed:
+        results += _check_micropython(folder, manifest, sets, integer, micropython_vectors)
+    notes = [f"note: {n}" for n in manifest["notes"]]
+    if "c" in listed:
         notes.append(f"note: C built through cffi with {' '.join(COMPILE_FLAGS)}")
     report = Report(manifest["name"], results, notes=notes)
-    if report.mismatches:
-        error = VerificationError(
-            f"{out_dir}: {report.mismatches} mismatches in {report.evaluations} evaluations of {report.name}"
-        )
-        error.report = report
-        raise error
+    if not report.passed:
+        failures = report.failures()
+        more = f" (and {len(failures) - 2} more)" if len(failures) > 2 else ""
+        raise VerificationError(f"{path}: " + "; ".join(failures[:2]) + more, report=report)
     return report
 
 
-def _check_c(out_dir, manifest, sets, reference, cache_dir) -> list[Result]:
-    code = load_c(out_dir, manifest, cache_dir=cache_dir)
-    label = f"C {manifest['name']}.c ({manifest['arith']}, {manifest['style']})"
+def _check_c(folder, manifest, sets, reference, cache_dir) -> list[Result]:
+    name = manifest["name"]
+    estimate = f"C {name}_estimate() ({manifest['arith']}, {manifest['style']})"
+    try:
+        code = load_c(folder, manifest, cache_dir=cache_dir)
+    except CompileFailure as exc:
+        return [Result(estimate, "build", 0, 0, error=exc.message)]
     results = []
     for vector_set in sets.values():
-        parts = [compare(label, vector_set.name, y, reference.evaluate(y), code.evaluate(y)) for y in vector_set.chunks()]
-        results.append(_merged(label, vector_set.name, parts))
+        parts = [compare(estimate, vector_set.name, y, reference.evaluate(y), code.evaluate(y))
+                 for y in vector_set.chunks()]
+        results.append(_merged(estimate, vector_set.name, parts))
+    failures = code.selftest()
+    error = None if failures == 0 else f"returns {failures}: that many wrong outputs on its built-in vectors"
+    results.append(Result(f"C {name}_selftest()", SELF_TEST, 1, 0, error=error))
     return results
 
 
-def _check_micropython(out_dir, manifest, sets, reference, limit: int) -> list[Result]:
+def _check_micropython(folder, manifest, sets, reference, limit: int) -> list[Result]:
     from affix.emit.micropython import variants
-    from affix.verify.micropython_run import cross_compile, run_micropython
+    from affix.verify.micropython_run import VARIANTS, ImportFailure, cross_compile, run_micropython, run_self_test
 
-    module = Path(out_dir) / f"{manifest['name']}.py"
-    if not module.is_file():
-        raise FileFormatError("listed in the manifest but missing", module)
+    module = folder / f"{manifest['name']}.py"
+    label = f"MicroPython {module.name}"
+    try:
+        passed = run_self_test(module)
+        self_test = Result(f"{label} self_test()", SELF_TEST, 1, 0, error=None if passed else "returns False")
+    except ImportFailure as exc:  # nothing in it can run
+        return [Result(label, "import", 0, 0, error=exc.message)]
+    except VerificationError as exc:
+        self_test = Result(f"{label} self_test()", SELF_TEST, 1, 0, error=exc.message)
     results = []
-    for variant in variants(reference):
-        label = f"MicroPython {module.name} ({variant})"
+    for variant in ("list", *variants(reference)):
+        entry = f"{label} {VARIANTS[variant][0]}()"
         for vector_set in sets.values():
             y = vector_set.sample(limit)
-            results.append(compare(label, vector_set.name, y, reference.evaluate(y), run_micropython(module, y, variant=variant)))
-    march = get_target(manifest.get("target", DEFAULT_TARGET)).mpy_march or DEFAULT_MPY_MARCH
+            try:
+                actual = run_micropython(module, y, variant=variant)
+            except VerificationError as exc:  # it raised: the other sets would too
+                results.append(Result(entry, vector_set.name, len(y), 0, error=exc.message))
+                break
+            results.append(compare(entry, vector_set.name, y, reference.evaluate(y), actual))
+    results.append(self_test)
+    march = get_target(manifest["target"]).mpy_march or DEFAULT_MPY_MARCH
     with tempfile.TemporaryDirectory(prefix="affix-mpy-") as tmp:  # the .mpy is a check, not an output
-        cross_compile(module, march=march, out=Path(tmp) / f"{manifest['name']}.mpy")
+        try:
+            cross_compile(module, march=march, out=Path(tmp) / f"{manifest['name']}.mpy")
+        except VerificationError as exc:
+            results.append(Result(f"{label} (mpy-cross)", "compile", 0, 0, error=exc.message))
     return results
 
 

@@ -85,8 +85,6 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
         vectors.tofile(tmp / "vectors.bin")
         done = _run([exe, "driver.py", "vectors.bin", "results.bin", str(len(vectors))], cwd=tmp)
         words = done.stdout.split()
-        if done.returncode == 4 and words == ["self-test-failed"]:
-            raise VerificationError(f"{py_file.name}: self_test() is False in MicroPython")
         if done.returncode == 3 and words[:1] == ["allocated"]:
             k, how = int(words[1]), HOW_SEEN[words[2]]
             raise VerificationError(
@@ -102,16 +100,45 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
     return results.reshape(len(vectors), -1)
 
 
+def run_self_test(py_file) -> bool:
+    """What ``self_test()`` of ``py_file`` returns in the MicroPython unix port.
+
+    A module that does not import (a syntax error, an exception at import)
+    raises ImportFailure; a self_test() that raises, VerificationError.
+    """
+    py_file = Path(py_file)
+    exe = tool("micropython")
+    with tempfile.TemporaryDirectory(prefix="affix-mp-") as tmp:
+        tmp = Path(tmp)
+        shutil.copyfile(py_file, tmp / f"{_MODULE}{py_file.suffix}")
+        (tmp / "driver.py").write_text(render("micropython/self_test_driver.jinja", module=_MODULE))
+        done = _run([exe, "driver.py"], cwd=tmp)
+    lines = done.stdout.splitlines()
+    if lines[:1] != ["imported"]:
+        raise ImportFailure(f"{py_file.name} does not import in MicroPython: {_last_line(done)}")
+    if lines[1:] == ["self_test True"]:
+        return True
+    if lines[1:] == ["self_test False"]:
+        return False
+    raise VerificationError(f"{py_file.name}: self_test() raised in MicroPython: {_last_line(done)}")
+
+
+class ImportFailure(VerificationError):
+    """The module does not even import: none of its functions can run."""
+
+
 def cross_compile(py_file, *, march: str = "armv7emsp", out=None) -> Path:
     """Compile ``py_file`` with mpy-cross for ``march`` (viper code included); the .mpy path.
 
     ``out`` defaults to the .py file's name with suffix .mpy, as mpy-cross does.
+    mpy-cross refusing the module (a syntax error, viper code it cannot
+    compile) is a VerificationError: the code is wrong, the tool is there.
     """
     py_file = Path(py_file)
     out = Path(out) if out is not None else py_file.with_suffix(".mpy")
     done = _run([tool("mpy-cross"), f"-march={march}", "-o", str(out), str(py_file)])
     if done.returncode != 0 or not out.is_file():
-        raise ToolError(f"mpy-cross -march={march} failed on {py_file.name}: {_last_line(done)}")
+        raise VerificationError(f"mpy-cross -march={march} refuses {py_file.name}: {_last_line(done)}")
     return out
 
 

@@ -28,7 +28,8 @@ def register(sub):
 
 
 def run(args) -> int:
-    from affix.emit.writer import emit, manifest_name  # loaded by this command only: start-up stays short
+    from affix.emit.manifest import manifest_name
+    from affix.emit.writer import emit  # loaded by this command only: start-up stays short
 
     plan = Plan.load(args.plan)
     manifest = emit(plan, lang=args.lang, arith=args.arith, style=args.style, name=args.name, out_dir=args.out)
