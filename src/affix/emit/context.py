@@ -12,6 +12,7 @@ import math
 import numpy as np
 
 from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, box_bounds, input_reach, output_range, rounding_constant
+from affix.emit.names import INFIX_IN, INFIX_OUT
 from affix.errors import UsageError
 from affix.float32_arithmetic import Float32Estimator, error_bound
 from affix.targets import get_target
@@ -108,6 +109,8 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         )
     return {
         "name": name,
+        "infix_in": INFIX_IN,  # NAME_<infix><user's name>: DEVELOPERS.md, "Generated identifiers"
+        "infix_out": INFIX_OUT,
         "function": f"{name}_estimate",
         "arith": arith,
         "style": style,

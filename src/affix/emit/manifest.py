@@ -62,9 +62,10 @@ def _names_are_emittable(values) -> None:
     """The names reach templates again (the verification build), so they pass the emitter's own check."""
     try:
         check_names(values["name"], values["inputs"], values["outputs"])
-    except UsageError as exc:
-        field = "name" if exc.option == "name" else "inputs" if exc.option.startswith("input") else "outputs"
-        schema.fail(field, exc.message)
+    except UsageError as exc:  # its parameter: "name", or "input name 'x'" / "output name 'x'"
+        if exc.parameter == "name":
+            schema.fail("name", exc.message.removeprefix("name: "))
+        schema.fail("inputs" if exc.parameter.startswith("input") else "outputs", exc.message)
     if values["function"] != f"{values['name']}_estimate":
         schema.fail("function", f"must be {values['name']}_estimate, the function the C emitter writes")
 
