@@ -26,6 +26,12 @@ VECTORS = "300"
 
 
 def emitted(folder: Path, lang: str = "all", seed: int = 4, name: str = "probe", **options) -> Path:
+    """Emit a small plan; the tools that verifying it needs are required."""
+    if lang in ("all", "c"):
+        require("gcc")
+    if lang in ("all", "micropython"):
+        require("micropython")
+        require("mpy-cross")
     emit(random_plan(seed, 3, 2, ranges="int16"), lang=lang, name=name, out_dir=folder, **options)
     return folder
 

@@ -233,24 +233,19 @@ class FileSet:
 def read_json(path, what: str):
     """The parsed content of a JSON file; ``what`` ("model", "plan", ...) words the missing-file error.
 
-    Strict JSON: NaN and Infinity (which Python's json module reads by
-    default) and a key given twice (of which it keeps the last, silently)
-    are refused.
+    A key given twice (of which Python's json module keeps the last,
+    silently) is refused.  NaN and Infinity, which it reads as floats, are
+    left to the file's schema, which refuses them naming the field.
     """
     path = Path(path)
     try:
-        return json.loads(path.read_text(encoding="utf-8"), parse_constant=_refuse_constant,
-                          object_pairs_hook=_unique_keys)
+        return json.loads(path.read_text(encoding="utf-8"), object_pairs_hook=_unique_keys)
     except FileNotFoundError:
         raise FileFormatError(f"no such {what} file", path) from None
     except (OSError, UnicodeDecodeError, ValueError) as exc:  # ValueError: bad JSON, over-long integers
         raise FileFormatError(f"not readable as JSON ({exc})", path) from None
     except RecursionError:
         raise FileFormatError("not readable as JSON (nested too deeply)", path) from None
-
-
-def _refuse_constant(word: str):
-    raise ValueError(f"{word} is not JSON")
 
 
 def _unique_keys(pairs) -> dict:

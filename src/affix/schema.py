@@ -204,8 +204,7 @@ class List(Spec):
         if self.length is not None:
             expected = at.size(self.length)
             if len(value) != expected:
-                per = f" (one per {self.length[:-1] if self.length.endswith('s') else self.length})" if isinstance(
-                    self.length, str) else ""
+                per = f" (one per entry of '{self.length}')" if isinstance(self.length, str) else ""
                 raise at.error(f"expected {expected} items{per}, got {len(value)}")
         elif not self.min_length <= len(value) <= self.max_length:
             raise at.error(f"expected {self.min_length} to {self.max_length} items, got {len(value)}")

@@ -67,7 +67,7 @@ def _names_are_emittable(values) -> None:
             schema.fail("name", exc.message.removeprefix("name: "))
         schema.fail("inputs" if exc.parameter.startswith("input") else "outputs", exc.message)
     if values["function"] != f"{values['name']}_estimate":
-        schema.fail("function", f"must be {values['name']}_estimate, the function the C emitter writes")
+        schema.fail("function", f"must be {values['name']}_estimate: the estimator's name (field 'name') and _estimate")
 
 
 def _files_agree(values) -> None:
@@ -77,7 +77,7 @@ def _files_agree(values) -> None:
         schema.fail("files", "lists no language")
     for lang, names in listed.items():
         if list(names) != language_files(name, lang):
-            schema.fail(f"files.{lang}", f"must be {language_files(name, lang)} for the estimator '{name}'")
+            schema.fail(f"files.{lang}", f"must be {language_files(name, lang)} for the estimator '{name}' (field 'name')")
     expected = sorted(f for names in listed.values() for f in names)
     if sorted(values["file_sha256"]) != expected:
         schema.fail("file_sha256", f"must hash exactly the listed files, {expected}")
