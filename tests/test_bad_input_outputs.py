@@ -312,8 +312,8 @@ def test_emit_beside_another_estimator_leaves_it_and_other_files_alone(work):
 
 @pytest.mark.bad_input("emit")
 def test_an_edited_manifest_cannot_make_emit_remove_other_files(work):
-    _earlier_emit(work, lang="c", name="old")
-    manifest = work / "fw" / "old.manifest.json"
+    _earlier_emit(work, lang="all", name="probe")
+    manifest = work / "fw" / "probe.manifest.json"
     data = json.loads(manifest.read_text())
     data["files"]["c"] += ["notes.txt", "../plan.json"]
     manifest.write_text(json.dumps(data))

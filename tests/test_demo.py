@@ -44,6 +44,6 @@ def test_demo_runs_the_whole_job(tmp_path):
     for step in ("$ affix fit", "$ affix quantize", "$ affix emit", "$ affix verify"):
         assert step in result.stdout
     assert result.stdout.count("PASS: 0 mismatches") == 2
-    assert "MicroPython wrist_ft.py (viper)" in result.stdout
+    assert "MicroPython wrist_ft.py estimate_into_viper()" in result.stdout
     # The summary gives what the estimator costs on the Cortex-M4, measured on the emulated core.
     assert re.search(rf"{CORE}: \d+ instructions per evaluation \(emulated\), flash \d+ bytes", result.stdout)

@@ -12,7 +12,6 @@ MicroPython unix port.
 """
 from __future__ import annotations
 
-import json
 import re
 from pathlib import Path
 
@@ -84,8 +83,9 @@ HALVED = dict(how=lambda v: v // 2 + 77)  # a coefficient far off, still within 
 def test_a_wrong_c_estimator_is_named(tmp_path, style):
     require("gcc")
     folder = emitted(tmp_path, "c", style=style)
-    marker = "probe_coef[PROBE_N_OUTPUTS][PROBE_N_INPUTS] = {" if style == "table" else "+ INT32_C("
-    tamper(folder, "probe.c", _change_number_after(marker, **HALVED))
+    markers = (["probe_coef[PROBE_N_OUTPUTS][PROBE_N_INPUTS] = {"] if style == "table"
+               else ["/* x0", "acc += (int32_t)INT32_C("])
+    tamper(folder, "probe.c", _change_number_after(*markers, **HALVED))
     verify_fails(folder, "C probe_estimate()", "mismatches")
 
 

@@ -160,10 +160,18 @@ def prove_integer_contract(values) -> None:
                 schema.fail(f"coefficients[{i}][{j}]", f"{a} does not fit coef_bits = {coef_bits}")
     estimator = IntegerEstimator(values["coefficients"], values["offsets"], values["shifts"], ranges,
                                  values["output_ctype"], values["rounding"], acc_bits)
+    limit = accumulator_limit(values)
     for name, bound in zip(values["outputs"], estimator.accumulator_bounds()):
-        if bound >= acc_limit:
+        if bound >= limit:
+            beyond = (f"the {acc_bits}-bit accumulator" if limit == acc_limit
+                      else f"{limit}, target {values['target']}'s accumulator limit")
             schema.fail("acc_bits", f"output '{name}' reaches |acc + r| = {bound} over the input box (from its "
-                        f"coefficients, offsets, shifts and the input_ranges), beyond the {acc_bits}-bit accumulator")
+                        f"coefficients, offsets, shifts and the input_ranges), beyond {beyond}")
+
+
+def accumulator_limit(values) -> int:
+    """What every |acc + r| must stay below: 2**(acc_bits - 1), or less where the target caps it."""
+    return TARGETS[values["target"]].accumulator_limit(values["acc_bits"])
 
 
 INTEGER_CONTRACT = (
@@ -179,6 +187,8 @@ INTEGER_CONTRACT = (
     schema.Field("acc_bits", schema.Choice(ACC_BITS)),
     schema.Field("rounding", schema.Choice(ROUNDINGS, aliases=ROUNDING_ALIASES)),
     schema.Field("input_lsb", schema.OrNone(schema.Array(("inputs",), schema.OrNone(schema.Number(positive=True))))),
+    # The core the proof's accumulator limit is for (MicroPython caps it at its small ints).
+    schema.Field("target", schema.Choice(TARGETS), default=DEFAULT_TARGET),
 )
 
 # --- the rest of the plan file ------------------------------------------------
@@ -205,16 +215,36 @@ _BUDGET = schema.Record(
     schema.Field("met", schema.Flag()),
     schema.Field("growth_percent", schema.OrNone(schema.Number(min=0.0))),
     schema.Field("default", schema.Flag()),
+    # The cheaper configuration the search passed over, and the outputs that missed the budget there.
+    schema.Field("passed_over", schema.Record(
+        schema.Field("coef_bits", schema.Choice(COEF_BITS)),
+        schema.Field("acc_bits", schema.Choice(ACC_BITS)),
+        schema.Field("output_ctype", schema.Choice(OUTPUT_CTYPES)),
+        schema.Field("missed", schema.List(schema.Record(
+            schema.Field("output", schema.Text(min_length=1)),
+            schema.Field("figure", schema.Number(min=0.0)),
+            schema.Field("limit", schema.Number(min=0.0)),
+            schema.Field("excess_percent", schema.Number(min=0.0)),
+        ), min_length=1)),
+    ), default=schema.OMITTED),
     rules=(_budget_agrees,),
 )
+def _figures_where_rows(values) -> None:
+    for key in ("rms_deviation", "max_deviation"):
+        if (values[key] is None) != (values["rows"] == 0):
+            schema.fail(f"measured.{key}", "must be null exactly where no row was measured (rows)")
+
+
 _MEASURED = schema.Mapping(
     schema.Choice(("random", "corners", "calibration")),
     schema.Record(
         schema.Field("rows", _COUNT),
-        schema.Field("rms_deviation", schema.Array(("outputs",), schema.OrNone(schema.Number(min=0.0)))),
-        schema.Field("max_deviation", _PER_OUTPUT_SIZE),
+        # null where no row was measured (every calibration row outside the box)
+        schema.Field("rms_deviation", schema.OrNone(_PER_OUTPUT_SIZE)),
+        schema.Field("max_deviation", schema.OrNone(_PER_OUTPUT_SIZE)),
         schema.Field("predicted_rms_deviation", _PER_OUTPUT_SIZE, default=schema.OMITTED),
         schema.Field("rows_outside_box", _COUNT, default=schema.OMITTED),
+        rules=(_figures_where_rows,),
     ),
 )
 _DEVIATION_PARTS = schema.Record(
@@ -237,9 +267,11 @@ def _recorded_bounds_agree(values) -> None:
         schema.fail("accumulator_bound", f"disagrees with the bound the integers give, {bounds}")
     headroom = values["accumulator_headroom_bits"]
     if headroom is not None:
-        exact = [values["acc_bits"] - 1 - (math.log2(b) if b else 0.0) for b in bounds]
+        room = math.log2(accumulator_limit(values))
+        exact = [room - (math.log2(b) if b else 0.0) for b in bounds]
         if not all(math.isclose(h, e, rel_tol=1e-9, abs_tol=1e-9) for h, e in zip(headroom, exact)):
-            schema.fail("accumulator_headroom_bits", "disagrees with acc_bits and the accumulator bound")
+            schema.fail("accumulator_headroom_bits", "disagrees with the accumulator bound and the limit of "
+                        "acc_bits on the target")
 
 
 PLAN_SCHEMA = schema.Schema(
@@ -260,7 +292,6 @@ PLAN_SCHEMA = schema.Schema(
     schema.Field("moments_source", schema.OrNone(schema.Choice(("calibration", "uniform-box"))), default=None),
     schema.Field("coefficient_method", schema.OrNone(schema.Choice(("plain", "error-feedback"))), default=None),
     schema.Field("input_ctype", schema.OrNone(schema.Choice(INPUT_CTYPES)), default=None),
-    schema.Field("target", schema.Choice(TARGETS), default=DEFAULT_TARGET),
     rules=(prove_integer_contract, _input_ctype_holds_the_box, _recorded_bounds_agree),
 )
 

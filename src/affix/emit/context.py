@@ -13,7 +13,6 @@ import numpy as np
 
 from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, box_bounds, input_reach, output_range, rounding_constant
 from affix.emit.names import INFIX_IN, INFIX_OUT
-from affix.errors import UsageError
 from affix.float32_arithmetic import Float32Estimator, error_bound
 from affix.targets import get_target
 

@@ -17,7 +17,6 @@ from affix.emit.names import check_names
 from affix.errors import UsageError
 from affix.float32_arithmetic import FLOAT32_MAX
 from affix.plan import INTEGER_CONTRACT, prove_integer_contract
-from affix.targets import TARGETS
 
 # The files each language writes, by estimator name.
 _LANGUAGE_FILES = {"c": ("{name}.c", "{name}.h"), "micropython": ("{name}.py",)}
@@ -109,7 +108,6 @@ MANIFEST_SCHEMA = schema.Schema(
     schema.Field("arith", schema.Choice(ARITHS)),
     schema.Field("style", schema.Choice(STYLES)),
     schema.Field("input_ctype", schema.Choice(INPUT_CTYPES)),
-    schema.Field("target", schema.Choice(TARGETS)),
     schema.Field("rounding_rule", schema.Text()),
     schema.Field("plan_sha256", schema.SHA256),
     schema.Field("model_sha256", schema.SHA256),

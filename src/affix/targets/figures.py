@@ -76,7 +76,8 @@ def measurement_vectors(input_ranges, count: int = COUNTED_VECTORS, seed: int = 
 
 
 def target_figures(emit_dir, target) -> dict:
-    """Instructions (or AVR cycles) per evaluation, flash and stack of the estimator in ``emit_dir`` on ``target``.
+    """Instructions (or AVR cycles) per evaluation, flash and stack of the estimator in ``emit_dir``
+    (a folder holding one manifest, or a manifest file) on ``target``.
 
     Plain figures: {"target", "compiler", "flags", "instructions_per_evaluation",
     "instructions_max", "cycles_per_evaluation", "flash_bytes", "stack_bytes",
@@ -87,7 +88,8 @@ def target_figures(emit_dir, target) -> dict:
     from affix.verify.check import find_manifest
 
     target = get_target(target)
-    _, manifest = find_manifest(emit_dir)
+    manifest_path, manifest = find_manifest(emit_dir)
+    emit_dir = manifest_path.parent
     if manifest["arith"] != "int":
         raise ValueError("target figures are measured for the integer C (emit --arith int)")
     with tempfile.TemporaryDirectory(prefix="affix-target-") as work:

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import sys
+from pathlib import Path
 
 from affix.emit import ARITHS, LANGUAGES, STYLES
 from affix.errors import ToolError
@@ -38,7 +39,7 @@ def run(args) -> int:
     files = [f for names in manifest["files"].values() for f in names] + [manifest_name(args.name)]
     print(f"wrote {', '.join(files)} to {args.out}")
     if "c" in manifest["files"] and args.arith == "int" and get_target(plan.target).compiler is not None:
-        print(figures_line(args.out, plan.target))
+        print(figures_line(Path(args.out) / manifest_name(args.name), plan.target))
     return 0
 
 
