@@ -248,6 +248,14 @@ def read_json(path, what: str):
         raise FileFormatError("not readable as JSON (nested too deeply)", path) from None
 
 
+def check_format(data, expected: str, what: str, path) -> dict:
+    """``data`` itself if it is a dict tagged ``"format": expected``, else a FileFormatError
+    (what a file type without a schema of its own checks first; see affix.schema)."""
+    if not isinstance(data, dict) or data.get("format") != expected:
+        raise FileFormatError(f'not an affix {what} file (expected "format": "{expected}")', path)
+    return data
+
+
 def _unique_keys(pairs) -> dict:
     data = {}
     for key, value in pairs:

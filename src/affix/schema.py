@@ -359,8 +359,9 @@ class Schema:
 
     def load(self, data, path=None) -> dict:
         """The parsed fields of ``data`` (a file's JSON content), ``format`` left out."""
-        if not isinstance(data, dict) or data.get("format") != self.format:
-            raise FileFormatError(f'not an affix {self.what} file (expected "format": "{self.format}")', path)
+        from affix.files import check_format
+
+        check_format(data, self.format, self.what, path)
         try:
             values = self.record.parse(data, At("", {}))
         except FieldError as exc:

@@ -17,7 +17,6 @@ from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
 
 from affix import files
-from affix.arithmetic import IntegerEstimator
 from affix.errors import FileFormatError
 from affix.model import Model
 from affix.plan import Plan
@@ -98,8 +97,7 @@ def read_build_folder(path, *, record: dict | None = None, location=None) -> Bui
     model = Model.from_dict(model_dict, path / "model.json")
     plan_dict = files.read_json(path / "plan.json", "plan")
     plan = Plan.from_dict(plan_dict, path / "plan.json")
-    manifest_path, manifest = find_manifest(path)
-    _check_manifest(manifest, manifest_path)
+    manifest_path, manifest = find_manifest(path)  # checked against its schema as it is read
     _check_agree(model_dict, plan_dict, manifest, path)
     return BuildFolder(
         path=path,
@@ -121,17 +119,6 @@ def _optional(file: Path, check):
     return check(files.read_json(file, file.stem), file) if file.is_file() else None
 
 
-def _check_manifest(manifest: dict, path: Path) -> None:
-    try:
-        IntegerEstimator.from_mapping(manifest)
-        names = [manifest["name"], *manifest["inputs"], *manifest["outputs"]]
-        choices = [manifest[k] for k in ("arith", "style", "input_ctype", "output_ctype")]
-    except (KeyError, TypeError, ValueError) as exc:
-        raise FileFormatError(f"manifest lacks or garbles {exc}", path) from None
-    if not all(isinstance(v, str) for v in names + choices) or not isinstance(manifest.get("files"), dict):
-        raise FileFormatError("manifest names, types or file lists are not text", path)
-
-
 def _check_agree(model: dict, plan: dict, manifest: dict, path: Path) -> None:
     """The three files describe one estimator: the plan cites this model, the manifest this plan (hashes
     of the files' content as written, so files of an earlier affix version still match), same names."""
@@ -140,7 +127,8 @@ def _check_agree(model: dict, plan: dict, manifest: dict, path: Path) -> None:
     if manifest.get("plan_sha256") != files.content_sha256(plan):
         raise FileFormatError("the manifest was not emitted from plan.json (plan_sha256 differs)", path)
     names = (plan["inputs"], plan["outputs"])
-    if (model["inputs"], model["outputs"]) != names or (manifest["inputs"], manifest["outputs"]) != names:
+    emitted = (list(manifest["inputs"]), list(manifest["outputs"]))
+    if (model["inputs"], model["outputs"]) != names or emitted != names:
         raise FileFormatError("model.json, plan.json and the manifest name different inputs or outputs", path)
 
 
