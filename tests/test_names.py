@@ -167,7 +167,7 @@ def test_every_generated_identifier_is_a_fixed_word_or_an_infix_and_a_users_name
             assert word.startswith(infix) and word[len(infix):] in users[infix], token
             derived.add(word)
     # The rule is about something: both kinds occur, every name is used.
-    assert {"estimate", "selftest", "box_lo", "coef", "N_INPUTS", "SELFTEST", "H", "verify_batch"} <= fixed
+    assert {"estimate", "selftest", "N_INPUTS", "N_OUTPUTS", "SELFTEST", "H", "verify_batch"} <= fixed
     assert derived == {INFIX_IN + n for n in RULE_PLAN.inputs} | {INFIX_OUT + n for n in RULE_PLAN.outputs}
 
 

@@ -72,9 +72,6 @@ def _change_number_after(*markers: str, how=lambda v: v ^ 1):
     return change
 
 
-HALVED = dict(how=lambda v: v // 2 + 77)  # a coefficient far off, still within 16 bits
-
-
 # --- C -------------------------------------------------------------------------
 
 
@@ -83,9 +80,10 @@ HALVED = dict(how=lambda v: v // 2 + 77)  # a coefficient far off, still within 
 def test_a_wrong_c_estimator_is_named(tmp_path, style):
     require("gcc")
     folder = emitted(tmp_path, "c", style=style)
-    markers = (["probe_coef[PROBE_N_OUTPUTS][PROBE_N_INPUTS] = {"] if style == "table"
-               else ["/* x0", "acc += (int32_t)INT32_C("])
-    tamper(folder, "probe.c", _change_number_after(*markers, **HALVED))
+    # The first coefficient, as the table lists it or the unrolled code writes it.
+    first = random_plan(4, 3, 2, ranges="int16").coefficients[0][0]
+    written = f"{{ {first}, " if style == "table" else f"INT32_C({first})"
+    tamper(folder, "probe.c", lambda text: text.replace(written, written.replace(str(first), str(first // 2 + 77)), 1))
     verify_fails(folder, "C probe_estimate()", "mismatches")
 
 
@@ -108,7 +106,7 @@ def test_a_wrong_c_self_test_table_is_named(tmp_path, arith):
 def test_c_that_does_not_compile_is_exit_1_with_the_compiler_log_outside_the_folder(tmp_path):
     require("gcc")
     folder = emitted(tmp_path / "out", "c")
-    tamper(folder, "probe.c", lambda text: text.replace("acc += ", "acc +== ", 1))
+    tamper(folder, "probe.c", lambda text: text.replace('#include "probe.h"', '#include "probe.h"\nint probe_broken = ;', 1))
     line = verify_fails(folder, "does not compile", "probe.c")
     log = Path(re.search(r"messages are in (\S+\.log)", line).group(1))
     assert log.is_file() and "error" in log.read_text()
