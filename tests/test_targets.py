@@ -105,6 +105,28 @@ def test_the_m0plus_avoids_the_64_bit_multiply_call_where_products_fit_32_bits(t
     assert "__aeabi_lmul" in _disassembly(tmp_path, _emit(tmp_path, plan, "cortex-m0plus")[0], "cortex-m0plus")
 
 
+def test_verify_runs_the_c_on_the_plans_core_and_catches_what_only_it_gets_wrong(tmp_path):
+    require("arm-none-eabi-gcc")
+    require("gcc")
+    from affix.errors import VerificationError
+    from affix.verify.check import verify
+
+    plan = random_plan(**PLANS["16/32 int16 7x5"])
+    out, _ = _emit(tmp_path, plan, "cortex-m0plus")
+    report = verify(out, vectors=2000, cache_dir=tmp_path / "cache")
+    on_core = [r for r in report.results if "emulated cortex-m0plus" in r.artefact]
+    assert len(on_core) == 3 and all(r.count > 0 and r.mismatches == 0 for r in on_core)
+    # Wrong only where __arm__ is defined: the host build passes, the emulated core must not.
+    source = (out / "probe.c").read_text()
+    marker = "\n}\n\n#ifdef PROBE_SELFTEST"
+    assert marker in source
+    (out / "probe.c").write_text(source.replace(marker, "\n#if defined(__arm__)\n    x[0] ^= 1;\n#endif" + marker))
+    with pytest.raises(VerificationError) as caught:
+        verify(out, vectors=2000, cache_dir=tmp_path / "cache")
+    bad = [r for r in caught.value.report.results if r.mismatches]
+    assert bad and all("emulated cortex-m0plus" in r.artefact for r in bad)
+
+
 def test_target_figures_are_measured_on_the_core(tmp_path):
     require("arm-none-eabi-gcc")
     plan = random_plan(**PLANS["16/32 int16 7x5"])

@@ -16,6 +16,7 @@ SCRATCH_SIZE = 0x10000
 STACK_TOP = 0x20100000
 STACK_SIZE = 0x10000
 _FILL = 0xA5  # stack paint: the lowest byte that changed is the call's deepest stack use
+PAINTED = 0x4000  # the stack's top bytes painted before a counted call
 
 
 class Emulator:
@@ -64,11 +65,13 @@ class Emulator:
         return bytes(self.uc.mem_read(address, size))
 
     def call(self, function: str, *args: int, count: bool = False) -> tuple[int, int]:
-        """Run ``function(*args)`` to its return; (instructions executed or 0, deepest stack use in bytes)."""
+        """Run ``function(*args)`` to its return; with ``count``, (instructions executed, deepest stack
+        use in bytes), else (0, 0)."""
         if function not in self.symbols:
             raise ToolError(f"{function} is not in the image")
         entry = self.symbols[function][0]
-        self.uc.mem_write(STACK_TOP - STACK_SIZE, bytes([_FILL]) * STACK_SIZE)
+        if count:
+            self.uc.mem_write(STACK_TOP - PAINTED, bytes([_FILL]) * PAINTED)
         if self.arm:
             from unicorn import arm_const as c
 
@@ -98,8 +101,12 @@ class Emulator:
         pc = self.uc.reg_read(c.UC_ARM_REG_PC if self.arm else c.UC_X86_REG_RIP)
         if pc & ~1 != RETURN:
             raise ToolError(f"{function} did not return on the emulated {self.cpu} (stopped at {pc:#x})")
-        stack = self.read(STACK_TOP - STACK_SIZE, STACK_SIZE)
-        used = STACK_SIZE - next((k for k, b in enumerate(stack) if b != _FILL), STACK_SIZE)
+        if not count:
+            return 0, 0
+        stack = self.read(STACK_TOP - PAINTED, PAINTED)
+        used = PAINTED - next((k for k, b in enumerate(stack) if b != _FILL), PAINTED)
+        if used == PAINTED:
+            raise ToolError(f"{function} used more than {PAINTED} bytes of stack on the emulated {self.cpu}")
         if not self.arm:
             used -= 8  # the return address the caller pushed
         return self._count, used

@@ -3,7 +3,9 @@ every entry point of every emitted file over the vector sets and compare with
 the reference rebuilt from the manifest, bit for bit.
 
 Entry points: in C, ``NAME_estimate()`` (through a batch wrapper) and
-``NAME_selftest()``; in MicroPython, ``estimate``, ``estimate_into``,
+``NAME_selftest()``, and, where the plan was made for a core the unicorn
+engine emulates (Cortex-M0+, M4, M7), ``NAME_estimate()`` cross-compiled for
+it and run there; in MicroPython, ``estimate``, ``estimate_into``,
 ``estimate_into_viper`` (where the emitter writes it) and ``self_test``, and
 the module must cross-compile with mpy-cross.  An entry point that cannot
 run (the C does not compile, the module does not import, a function raises)
@@ -25,12 +27,16 @@ from affix.arithmetic import IntegerEstimator
 from affix.emit.manifest import generated_files, load_manifest, manifests_in, sha256_of
 from affix.errors import FileFormatError, VerificationError
 from affix.float32_arithmetic import Float32Estimator
-from affix.targets import get_target
+from affix.errors import ToolError
+from affix.targets import DEFAULT_TARGET, get_target
+from affix.targets.figures import SIMAVR
+from affix.targets.toolchain import compiler_path, flags_for
 from affix.verify.c_build import COMPILE_FLAGS, CompileFailure, load_c
 from affix.verify.vectors import calibration_vectors, vector_sets
 
 SHOWN_MISMATCHES = 5
 MICROPYTHON_VECTORS = 10**4  # per vector set and variant: the runtime is an interpreter
+CORE_VECTORS = 10**4  # per vector set on an emulated core: one Python call per vector
 DEFAULT_MPY_MARCH = "armv7emsp"  # the native code checked where the plan's target runs no MicroPython
 SELF_TEST = "self-test"  # the vector set of a self-test: the known vectors built into the code
 
@@ -142,13 +148,15 @@ def check_files(folder: Path, manifest) -> None:
 
 def verify(
     target, *, vectors: int = 10**6, data=None, seed: int = 0, micropython_vectors: int = MICROPYTHON_VECTORS,
-    cache_dir=None,
+    core_vectors: int = CORE_VECTORS, cache_dir=None,
 ) -> Report:
     """Check the emit that ``target`` names (a manifest file, or a folder with one
     manifest); the report, or VerificationError (carrying the report as
     ``.report`` where one was made) at any failure.
 
-    The MicroPython runtime sees at most ``micropython_vectors`` of each set.
+    Integer C planned for an emulated core also runs there, cross-compiled, on
+    at most ``core_vectors`` of each set; the MicroPython runtime sees at most
+    ``micropython_vectors`` of each set.
     """
     path, manifest = find_manifest(target)
     folder = path.parent
@@ -164,11 +172,17 @@ def verify(
     listed = manifest["files"]
     if "c" in listed:
         results += _check_c(folder, manifest, sets, float32 or integer, cache_dir)
+        if float32 is None and _emulated(manifest):
+            results += _check_on_core(folder, manifest, sets, integer, core_vectors)
     if "micropython" in listed:
         results += _check_micropython(folder, manifest, sets, integer, micropython_vectors)
     notes = [f"note: {n}" for n in manifest["notes"]]
     if "c" in listed:
         notes.append(f"note: C built through cffi with {' '.join(COMPILE_FLAGS)}")
+        if float32 is None and _emulated(manifest):
+            core = get_target(manifest["target"])
+            notes.append(f"note: C for {core.name} built with {core.compiler} {' '.join(flags_for(core))}, "
+                         "run in the unicorn engine's model of the core")
     report = Report(manifest["name"], results, notes=notes)
     if not report.passed:
         failures = report.failures()
@@ -192,6 +206,30 @@ def _check_c(folder, manifest, sets, reference, cache_dir) -> list[Result]:
     failures = code.selftest()
     error = None if failures == 0 else f"returns {failures}: that many wrong outputs on its built-in vectors"
     results.append(Result(f"C {name}_selftest()", SELF_TEST, 1, 0, error=error))
+    return results
+
+
+def _emulated(manifest) -> bool:
+    """Whether the plan's target is a core unicorn runs (the host's own C runs natively through cffi)."""
+    target = get_target(manifest["target"])
+    return target.name != DEFAULT_TARGET and target.emulator not in (None, SIMAVR)
+
+
+def _check_on_core(folder, manifest, sets, reference, limit: int) -> list[Result]:
+    from affix.targets.figures import EmulatedEstimator
+
+    target = get_target(manifest["target"])
+    compiler_path(target)  # a missing cross compiler is status 4, not a failure of the code
+    estimate = f"C {manifest['name']}_estimate() on the emulated {target.name} ({manifest['style']})"
+    results = []
+    with tempfile.TemporaryDirectory(prefix="affix-core-") as tmp:
+        try:
+            code = EmulatedEstimator(folder, manifest, target, tmp)
+        except ToolError as exc:  # the compiler is there: the code does not build for this core
+            return [Result(estimate, "build", 0, 0, error=exc.message)]
+        for vector_set in sets.values():
+            y = vector_set.sample(limit)
+            results.append(compare(estimate, vector_set.name, y, reference.evaluate(y), code.evaluate(y)[0]))
     return results
 
 
