@@ -197,6 +197,8 @@ QUANTIZE_CASES = {
     "--data with NUL bytes": (("cal.csv", (HEADER + "\n").encode() + bytes(100)), [], r"cal.csv, line 2: holds NUL bytes"),
     "--data near 1e160": (("cal.csv", edited({5: "1,-2e160,3,4,5"})), [], r"cal.csv, line 5, column 'b2': -2e\+160 is beyond ±1e\+150"),
     "--data .npy declaring 10^12 rows": (("cal.npy", npy_header((10**12, 3)) + bytes(48)), [], r"cal.npy: array declares the shape \(1000000000000, 3\)"),
+    "--input-type that cannot hold the box": (None, ["--input-type", "uint16_t"], r"--input-type: uint16_t does not hold the input box \(--range\)"),
+    "--acc-bits 64 on micropython": (None, ["--target", "micropython", "--acc-bits", "64"], r"--acc-bits: target micropython takes a 32-bit accumulator, not 64"),
 }
 
 
