@@ -87,12 +87,36 @@ def test_the_m4_gets_one_smlal_per_term_and_smlad_per_pair(tmp_path):
     # (SMLAL; GCC may start a sum with SMULL and add the offset after), and no 64 x 64 multiply.
     assert len(re.findall(r"\bsm(lal|ull)\b", code)) == 7, code
     assert not re.search(r"\b(umull|umlal|mla)\b", code) and "__aeabi_lmul" not in code
+    # Unrolled, the constants are immediates: each coefficient goes in 16-bit halves through SMLALD,
+    # two terms per instruction, high halves then low halves.
+    code = _disassembly(tmp_path, _emit(tmp_path, wide, "cortex-m4", "unrolled")[0], "cortex-m4")
+    assert len(re.findall(r"\bsmlald\b", code)) == 3 * 2 * 4, code
+    assert not re.search(r"\b(umull|umlal|mla|smlal)\b", code) and "__aeabi_lmul" not in code
     narrow = random_plan(seed=6, n_inputs=7, n_outputs=3, ranges="int16", coef_bits=16, acc_bits=32)
     code = _disassembly(tmp_path, _emit(tmp_path, narrow, "cortex-m4")[0], "cortex-m4")
     # 7 inputs in 4 pairs (the last padded with 0): SMUAD starts each sum, SMLAD adds the other three.
     assert len(re.findall(r"\bsmuad\b", code)) == 1 and len(re.findall(r"\bsmlad\b", code)) == 3, code
     code = _disassembly(tmp_path, _emit(tmp_path, narrow, "cortex-m0plus")[0], "cortex-m0plus")
     assert "smlad" not in code and "muls" in code  # the portable path on ARMv6-M
+
+
+@pytest.mark.parametrize("plan_kind,style", [("16/32 int16 7x5", "table"), ("16/32 int16 7x5", "unrolled"),
+                                             ("16/64 uint8 3x2", "table"), ("16/64 uint8 3x2", "unrolled"),
+                                             ("32/64 int16 6x4 saturating", "unrolled")])
+def test_the_dsp_paths_build_cleanly_as_c99_and_cxx11(tmp_path, plan_kind, style):
+    # The code under __ARM_FEATURE_DSP only compiles where the core has it: the
+    # strict warning set as errors (tests/test_emit_c.py), for the M4, in C99 and C++11.
+    from test_emit_c import C_FLAGS, CXX_FLAGS, STRICTER
+
+    plan = random_plan(**PLANS[plan_kind])
+    out, _ = _emit(tmp_path, plan, "cortex-m4", style)
+    source = (out / "probe.c").read_text()
+    assert "__smlald(" in source or "__smlad(" in source or "__smuad(" in source
+    cpu = ["-mcpu=cortex-m4", "-mthumb", "-O2", "-DPROBE_SELFTEST", "-c", str(out / "probe.c"), "-o",
+           str(tmp_path / "probe.o")]
+    for compiler, flags in (("arm-none-eabi-gcc", C_FLAGS + STRICTER), ("arm-none-eabi-g++", CXX_FLAGS)):
+        done = subprocess.run([require(compiler), *flags, *cpu], capture_output=True, text=True)
+        assert done.returncode == 0, done.stderr
 
 
 def test_the_m0plus_avoids_the_64_bit_multiply_call_where_products_fit_32_bits(tmp_path):

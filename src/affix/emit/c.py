@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from affix.emit.context import build_context, dual_mac_applies
+from affix.emit.context import build_context, dual_mac_applies, split_applies
 from affix.emit.templates import render
 from affix.errors import UsageError
 from affix.float32_arithmetic import FLOAT32_MAX, magnitude_bound
@@ -26,7 +26,8 @@ def notes(plan, *, arith: str, style: str) -> list[str]:
     target = get_target(plan.target)
     narrow_inputs = int("".join(ch for ch in plan.input_ctype if ch.isdigit())) < 32
     if (arith == "int" and style == "unrolled" and target.widening_mac and target.compiler != "gcc"
-            and plan.acc_bits == 64 and narrow_inputs and not dual_mac_applies(plan, target)):
+            and plan.acc_bits == 64 and narrow_inputs and not dual_mac_applies(plan, target)
+            and not split_applies(plan, target)):
         return [f"c: on {target.name}, GCC 12 turns a 32-bit immediate times an input of type {plan.input_ctype} into a "
                 "64 x 64-bit multiply; the table style keeps one SMLAL per term"]
     return []

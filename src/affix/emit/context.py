@@ -46,6 +46,7 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
     # alone (floor(floor(v / 2^32) / 2^(s-32)) = floor(v / 2^s)): 32-bit work.
     applied_shifts = [min(s, plan.acc_bits - 1) for s in plan.shifts]
     high_shift = plan.acc_bits == 64 and min(applied_shifts, default=0) >= 32
+    split = arith == "int" and style == "unrolled" and split_applies(plan, target)
     type_lo, type_hi = INPUT_CTYPES[in_ctype]
     out_lo, out_hi = OUTPUT_CTYPES[plan.output_ctype]
     inputs = [
@@ -89,6 +90,9 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
                     for j, a in enumerate(row) if a != 0
                 ],
                 "coef_pairs": _pairs(row),
+                # The split path (see split_applies): the high and the low 16-bit halves, in pairs.
+                "high_pairs": _pairs([_halves(a)[0] for a in row]) if split else [],
+                "low_pairs": _pairs([_halves(a)[1] for a in row]) if split else [],
                 "shift": shift,
                 "applied_shift": applied,
                 "round": round_const,
@@ -119,7 +123,8 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         "outputs": outputs,
         "input_ctype": in_ctype,
         "target": target.name,
-        "dual_mac": arith == "int" and dual_mac_applies(plan, target),
+        "dual_mac": arith == "int" and (dual_mac_applies(plan, target) or split),
+        "split_mac": split,
         "input_pairs": [(j, j + 1 if j + 1 < len(inputs) else None) for j in range(0, len(inputs), 2)],
         "input_type_bits": _bits(in_ctype),
         "input_type_min": type_lo,
@@ -165,6 +170,27 @@ def dual_mac_applies(plan, target) -> bool:
     lo, hi = _HALF
     return (target.dual_mac and plan.coef_bits <= 16
             and all(lo <= r_lo and r_hi <= hi for r_lo, r_hi in plan.input_ranges))
+
+
+def _halves(coefficient: int) -> tuple[int, int]:
+    """(high, low) with coefficient = high * 65536 + low and low in [-32768, 32767]."""
+    low = ((coefficient + 0x8000) & 0xFFFF) - 0x8000
+    return (coefficient - low) >> 16, low
+
+
+def split_applies(plan, target) -> bool:
+    """Unrolled 32-bit coefficients with a 64-bit sum on a DSP core go through SMLALD in
+    16-bit halves: sum_j a_j y_j = 65536 * sum_j high_j y_j + sum_j low_j y_j.
+
+    GCC 12 turns an immediate 32-bit constant times a 16-bit input into a
+    64 x 64-bit multiply instead of one SMLAL; two SMLALD per pair of terms
+    cost less.  Every half and clamped input must fit 16 bits, and 65536 times
+    the high sum (below 2**46 * M) stays far inside int64_t.
+    """
+    lo, hi = _HALF
+    return (target.dual_mac and plan.coef_bits == 32 and plan.acc_bits == 64 and len(plan.inputs) < 2**16
+            and all(lo <= r_lo and r_hi <= hi for r_lo, r_hi in plan.input_ranges)
+            and all(lo <= _halves(a)[0] <= hi for row in plan.coefficients for a in row))
 
 
 def _pairs(row) -> list[int]:
