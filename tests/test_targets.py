@@ -28,7 +28,7 @@ from affix.targets import TARGETS, get_target
 from affix.targets.costs import cost_table, evaluation_cost
 from affix.targets.figures import EmulatedEstimator, measurement_vectors, target_figures
 from affix.verify.vectors import vector_sets
-from conftest import require, run_affix
+from conftest import rehash, require, run_affix
 from plans import random_plan
 
 EMULATED = [name for name, t in TARGETS.items() if t.emulator not in (None, "simavr") and name != "host"]  # unicorn
@@ -145,10 +145,29 @@ def test_verify_runs_the_c_on_the_plans_core_and_catches_what_only_it_gets_wrong
     marker = "\n}\n\n#ifdef PROBE_SELFTEST"
     assert marker in source
     (out / "probe.c").write_text(source.replace(marker, "\n#if defined(__arm__)\n    x[0] ^= 1;\n#endif" + marker))
+    rehash(out / "probe.manifest.json")  # as a faulty emitter would: the fault must be found by running the code
     with pytest.raises(VerificationError) as caught:
         verify(out, vectors=2000, cache_dir=tmp_path / "cache")
     bad = [r for r in caught.value.report.results if r.mismatches]
     assert bad and all("emulated cortex-m0plus" in r.artefact for r in bad)
+
+
+def test_verify_without_the_cross_compiler_checks_the_rest_and_says_what_it_left_out(tmp_path, monkeypatch):
+    import os
+    import shutil
+
+    from affix.verify.check import verify
+
+    gcc = require("gcc")
+    out, _ = _emit(tmp_path, random_plan(1), "cortex-m4")
+    tools = tmp_path / "bin"  # the host compiler and its assembler and linker, no cross compiler
+    tools.mkdir()
+    for name in ("gcc", "cc", "as", "ld"):
+        os.symlink(shutil.which(name) or gcc, tools / name)
+    monkeypatch.setenv("PATH", str(tools))
+    report = verify(out, vectors=1000, cache_dir=tmp_path / "cache")
+    assert report.passed and not any("emulated" in r.artefact for r in report.results)
+    assert any("not run on the emulated cortex-m4" in n and "arm-none-eabi-gcc" in n for n in report.notes)
 
 
 def test_target_figures_are_measured_on_the_core(tmp_path):

@@ -73,6 +73,11 @@ def input_ctype(input_ranges) -> str | None:
     return None
 
 
+def ctype_bits(ctype: str) -> int:
+    """The width of an exact-width integer type: 16 for int16_t or uint16_t."""
+    return int("".join(ch for ch in ctype if ch.isdigit()))
+
+
 def ctype_holds(ctype: str, input_ranges) -> bool:
     """Whether every range of the box lies within the input type ``ctype``."""
     lo, hi = INPUT_CTYPES[ctype]

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from affix.arithmetic import ctype_bits
 from affix.emit.context import build_context, dual_mac_applies, split_applies
 from affix.emit.templates import render
 from affix.errors import UsageError
@@ -24,7 +25,7 @@ def render_c(plan, name: str, *, arith: str = "int", style: str = "table") -> di
 def notes(plan, *, arith: str, style: str) -> list[str]:
     """Plain-text lines for the emit report and the manifest."""
     target = get_target(plan.target)
-    narrow_inputs = int("".join(ch for ch in plan.input_ctype if ch.isdigit())) < 32
+    narrow_inputs = ctype_bits(plan.input_ctype) < 32
     if (arith == "int" and style == "unrolled" and target.widening_mac and target.compiler != "gcc"
             and plan.acc_bits == 64 and narrow_inputs and not dual_mac_applies(plan, target)
             and not split_applies(plan, target)):

@@ -11,7 +11,9 @@ import math
 
 import numpy as np
 
-from affix.arithmetic import INPUT_CTYPES, OUTPUT_CTYPES, box_bounds, input_reach, output_range, rounding_constant
+from affix.arithmetic import (
+    INPUT_CTYPES, OUTPUT_CTYPES, box_bounds, ctype_bits, input_reach, output_range, rounding_constant,
+)
 from affix.emit.names import INFIX_IN, INFIX_OUT
 from affix.float32_arithmetic import Float32Estimator, error_bound
 from affix.targets import get_target
@@ -126,12 +128,12 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         "dual_mac": arith == "int" and (dual_mac_applies(plan, target) or split),
         "split_mac": split,
         "input_pairs": [(j, j + 1 if j + 1 < len(inputs) else None) for j in range(0, len(inputs), 2)],
-        "input_type_bits": _bits(in_ctype),
+        "input_type_bits": ctype_bits(in_ctype),
         "input_type_min": type_lo,
         "input_type_max": type_hi,
         "input_signed": type_lo < 0,
         "output_ctype": plan.output_ctype,
-        "output_bits": _bits(plan.output_ctype),
+        "output_bits": ctype_bits(plan.output_ctype),
         "output_min": out_lo,
         "output_max": out_hi,
         "acc_bits": plan.acc_bits,
@@ -219,10 +221,6 @@ def check_vectors(plan, in_ctype: str, arith: str) -> list[dict]:
     else:
         expected = plan.integer_estimator().evaluate(y).tolist()
     return [{"inputs": row.tolist(), "expected": out} for row, out in zip(y, expected)]
-
-
-def _bits(ctype: str) -> int:
-    return int("".join(ch for ch in ctype if ch.isdigit()))
 
 
 def _power_of_two_exponent(lsb: float) -> int | None:

@@ -8,6 +8,7 @@ code, so each call starts from a fresh stack and returns to a stop address.
 from __future__ import annotations
 
 from affix.errors import ToolError
+from affix.targets.toolchain import elf_reader
 
 PAGE = 0x1000
 RETURN = 0x0F000000  # where every call returns: a mapped page no image uses
@@ -19,15 +20,21 @@ _FILL = 0xA5  # stack paint: the lowest byte that changed is the call's deepest 
 PAINTED = 0x4000  # the stack's top bytes painted before a counted call
 
 
+def engine():
+    """The unicorn module, or ToolError naming the package to install."""
+    try:
+        import unicorn
+    except ImportError:
+        raise ToolError("unicorn is not installed (pip install 'affix[verify]')") from None
+    return unicorn
+
+
 class Emulator:
     """One loaded image on one emulated core; ``call`` runs a function with integer arguments."""
 
     def __init__(self, elf, cpu: str):
-        try:
-            import unicorn
-            from elftools.elf.elffile import ELFFile
-        except ImportError as exc:
-            raise ToolError(f"{exc.name} is not installed (pip install unicorn pyelftools)") from None
+        unicorn = engine()
+        ELFFile = elf_reader()
         self._unicorn = unicorn
         self.cpu = cpu
         self.arm = cpu != "x86-64"

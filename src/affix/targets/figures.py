@@ -11,11 +11,14 @@ vectors bit for bit on the emulated core.
 from __future__ import annotations
 
 import re
+import shutil
+import subprocess
 import tempfile
 from pathlib import Path
 
 import numpy as np
 
+from affix.arithmetic import ctype_bits
 from affix.errors import ToolError
 from affix.targets import get_target
 from affix.targets.emulator import SCRATCH, SCRATCH_SIZE, Emulator
@@ -117,9 +120,6 @@ def target_figures(emit_dir, target) -> dict:
 
 def avr_cycles(emit_dir, manifest, vectors, work_dir) -> float:
     """Mean CPU cycles of one call on an ATmega2560 in simavr, counted by its Timer1 (prescaler 1)."""
-    import shutil
-    import subprocess
-
     from affix.emit.templates import render
 
     simavr = shutil.which(SIMAVR)
@@ -131,7 +131,7 @@ def avr_cycles(emit_dir, manifest, vectors, work_dir) -> float:
     work_dir.mkdir()
     main = work_dir / "timing_main.c"
     main.write_text(render("c/avr_cycles_main.c.jinja", name=name, input_ctype=manifest["input_ctype"],
-                           output_ctype=manifest["output_ctype"], input_bits=_bits(manifest["input_ctype"]),
+                           output_ctype=manifest["output_ctype"], input_bits=ctype_bits(manifest["input_ctype"]),
                            vectors=np.asarray(vectors).tolist()))
     elf = work_dir / "timing.elf"
     cc = compiler_path(target)
@@ -146,6 +146,3 @@ def avr_cycles(emit_dir, manifest, vectors, work_dir) -> float:
         raise ToolError(f"simavr gave no cycle count: {(run.stderr or run.stdout).strip()[-500:]}")
     return int(found.group(1)) / int(found.group(2))
 
-
-def _bits(ctype: str) -> int:
-    return int("".join(ch for ch in ctype if ch.isdigit()))

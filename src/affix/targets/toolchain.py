@@ -77,11 +77,20 @@ def build_image(target: Target, sources, entry: str, out_dir, *, include_dirs=()
 
 
 def flash_size(elf: Path) -> int:
-    from elftools.elf.elffile import ELFFile
+    ELFFile = elf_reader()
 
     with open(elf, "rb") as handle:
         sections = list(ELFFile(handle).iter_sections())
         return sum(s["sh_size"] for s in sections if s.name.startswith(_FLASH_SECTIONS) and s["sh_flags"] & 2)
+
+
+def elf_reader():
+    """pyelftools' ELFFile, or ToolError naming the package to install."""
+    try:
+        from elftools.elf.elffile import ELFFile
+    except ImportError:
+        raise ToolError("pyelftools is not installed (pip install 'affix[verify]')") from None
+    return ELFFile
 
 
 def stack_usage(su_files, entry: str) -> int:
