@@ -62,12 +62,25 @@ def test_npz_of_named_columns_or_of_one_array(tmp_path):
     np.testing.assert_array_equal(whole(read_chunks(single, ["2", "0"], chunk_rows=100)), values[:, [2, 0]])
 
 
-def test_sha256_of_the_whole_file_after_a_pass(tmp_path):
-    path = tmp_path / "log.csv"
-    write_csv(path, ["a", "b", "c", "d"], table(np.random.default_rng(4)))
-    stream = read_chunks(path, ["b"], chunk_rows=50)
+def write_table(path):
+    """The same table as a CSV, a .npy or a .npz of columns a, b, c, d."""
+    values = table(np.random.default_rng(4))
+    if path.suffix == ".csv":
+        write_csv(path, ["a", "b", "c", "d"], values)
+    elif path.suffix == ".npz":
+        np.savez(path, **dict(zip("abcd", values.T)))
+    else:
+        np.save(path, values)
+    return path, (["a", "b"] if path.suffix != ".npy" else ["0", "1"])
+
+
+@pytest.mark.parametrize("name", ["log.csv", "log.npy", "log.npz"])
+def test_sha256_of_the_whole_file_after_a_pass(tmp_path, name):
+    # A .npy is read once, by the thread that hashes it, in many small reads here.
+    path, columns = write_table(tmp_path / name)
+    stream = read_chunks(path, columns[1:], chunk_rows=50)
     whole(stream)
-    assert stream.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
+    assert stream.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()  # hashlib over the whole file
     assert stream.rows_read == 1000 and stream.rows_dropped == 0
 
 
@@ -84,13 +97,13 @@ def test_sha256_over_many_read_blocks(tmp_path, monkeypatch, size_in_blocks):
 
 
 @pytest.mark.bad_input("fit")
-def test_a_failure_while_hashing_is_an_error_naming_the_file_not_the_hash_of_what_was_read(tmp_path, monkeypatch):
+@pytest.mark.parametrize("name", ["log.csv", "log.npy"])
+def test_a_failure_while_hashing_is_an_error_naming_the_file_not_the_hash_of_what_was_read(tmp_path, monkeypatch, name):
     import errno
 
     from affix.intake import digest
 
-    path = tmp_path / "log.csv"
-    write_csv(path, ["a", "b", "c", "d"], table(np.random.default_rng(4)))
+    path, columns = write_table(tmp_path / name)
     real_open = open
 
     class FailingRead:
@@ -110,19 +123,37 @@ def test_a_failure_while_hashing_is_an_error_naming_the_file_not_the_hash_of_wha
 
     monkeypatch.setattr(digest, "open", FailingRead, raising=False)
     with pytest.raises(DataError, match=rf"{path}: cannot read the file to compute its SHA-256 \(Input/output error\)"):
-        whole(read_chunks(path, ["a", "b"]))
+        whole(read_chunks(path, columns))
 
 
 @pytest.mark.bad_input("fit")
-def test_a_file_that_changes_during_the_pass_is_refused(tmp_path):
-    path = tmp_path / "log.csv"
-    write_csv(path, ["a", "b", "c", "d"], table(np.random.default_rng(4)))
-    stream = iter(read_chunks(path, ["a", "b"], chunk_rows=100))
+@pytest.mark.parametrize("name", ["log.csv", "log.npy", "log.npz"])
+def test_a_file_that_changes_during_the_pass_is_refused(tmp_path, name):
+    path, columns = write_table(tmp_path / name)
+    stream = iter(read_chunks(path, columns, chunk_rows=100))
     next(stream)
-    with open(path, "a") as f:  # a logger still appending to the file
-        f.write("1,2,3,4\n")
+    with open(path, "ab") as f:  # a logger still appending to the file
+        f.write(b"1,2,3,4\n")
     with pytest.raises(DataError, match=rf"{path}: the file changed while it was read"):
         list(stream)
+
+
+@pytest.mark.bad_input("fit")
+def test_a_pass_that_stops_early_lets_the_reading_thread_go(tmp_path):
+    import threading
+
+    path = tmp_path / "log.npy"
+    values = np.ones((50_000, 3))
+    values[100, 2] = 1e200  # refused in the first chunk, with many chunks still to read
+    np.save(path, values)
+    before = threading.active_count()
+    with pytest.raises(DataError, match=r"log.npy, row 101, column '2': 1e\+200 is beyond"):
+        whole(read_chunks(path, ["0", "1", "2"], chunk_rows=64))
+    for _ in range(100):  # the thread notices within its 0.1 s hand-over timeout
+        if threading.active_count() == before:
+            break
+        threading.Event().wait(0.02)
+    assert threading.active_count() == before
 
 
 @pytest.mark.bad_input("fit")

@@ -24,6 +24,7 @@ from contextlib import ExitStack
 import numpy as np
 
 from affix.errors import DataError
+from affix.intake.digest import FileDigest
 
 # Rows per read: the statistics' block size (affix.statistics.folds.BLOCK_ROWS),
 # so a block read stays in the CPU cache while the statistics work through it.
@@ -40,6 +41,50 @@ def column_names(path) -> Sequence[str]:
 
 
 def raw_chunks(path, columns, chunk_rows):
+    """Float64 chunks (k, len(columns)) of the chosen columns, in file order.
+
+    A .npy file gives a :class:`HashedRows`, which reads the file once for
+    both its rows and its SHA-256; a .npz, whose digest is of the archive
+    and not of the arrays, a plain generator.
+    """
+    if not _is_npz(path):
+        return HashedRows(path, columns, chunk_rows)
+    return _archive_chunks(path, columns, chunk_rows)
+
+
+class HashedRows:
+    """The chosen columns of a .npy file, read by a FileDigest thread that
+    hashes every byte as it reads it (``FileDigest(into=...)``): one read of
+    the file, on the other core, and a digest of exactly the bytes the rows
+    came from.  Iterate once for the chunks, then :meth:`hexdigest`."""
+
+    def __init__(self, path, columns, chunk_rows):
+        self.path, self.columns, self.chunk_rows = path, list(columns), chunk_rows
+        self._digest = None
+
+    def __iter__(self):
+        (source,) = _open_sources(self.path, None)
+        positions = [source.names.index(name) for name in self.columns]
+        chunk_rows = _rows_per_read(self.chunk_rows, source.row_bytes)
+
+        def buffers():
+            yield bytearray(source.header_bytes)  # hashed like the rest; already parsed
+            for start in range(0, source.rows, chunk_rows):
+                yield np.empty((min(chunk_rows, source.rows - start), source.width), dtype=source.dtype)
+
+        self._digest = FileDigest(self.path, into=buffers())
+        try:
+            self._digest.next_filled()
+            while (rows := self._digest.next_filled()) is not None:
+                yield _as_chunk(rows, positions)
+        finally:
+            self._digest.close()
+
+    def hexdigest(self) -> str:
+        return self._digest.hexdigest()
+
+
+def _archive_chunks(path, columns, chunk_rows):
     with ExitStack() as stack:
         sources = _open_sources(path, stack)
         wanted = {}  # source -> [(column in the result, position in the stored rows)]
@@ -48,23 +93,31 @@ def raw_chunks(path, columns, chunk_rows):
             wanted.setdefault(source, []).append((j, position))
         for source in wanted:
             source.open(stack)
-        chunk_rows = max(1, min(chunk_rows, CHUNK_BYTES // max(s.row_bytes for s in wanted)))
+        chunk_rows = _rows_per_read(chunk_rows, max(s.row_bytes for s in wanted))
         remaining = sources[0].rows
         while remaining:
             k = min(chunk_rows, remaining)
             remaining -= k
-            if len(wanted) == 1:  # one stored array: a single copy, gathering columns only if needed
+            if len(wanted) == 1:  # one stored array
                 ((source, pairs),) = wanted.items()
-                positions = [p for _, p in pairs]
-                rows = source.read(k)
-                if positions != list(range(source.width)):
-                    rows = rows[:, positions]
-                yield rows.astype(np.float64, copy=False)
+                yield _as_chunk(source.read(k), [p for _, p in pairs])
                 continue
             chunk = np.empty((k, len(columns)))
             for source, pairs in wanted.items():
                 chunk[:, [j for j, _ in pairs]] = source.read(k)[:, [p for _, p in pairs]]
             yield chunk
+
+
+def _rows_per_read(chunk_rows, row_bytes) -> int:
+    """chunk_rows, fewer for very wide rows, so that one read stays near CHUNK_BYTES."""
+    return max(1, min(chunk_rows, CHUNK_BYTES // row_bytes))
+
+
+def _as_chunk(rows, positions) -> np.ndarray:
+    """The stored rows' chosen columns as float64: one copy at most, gathering columns only if needed."""
+    if positions != list(range(rows.shape[1])):
+        rows = rows[:, positions]
+    return rows.astype(np.float64, copy=False)
 
 
 class IndexNames(Sequence):
@@ -183,9 +236,14 @@ def _find(sources, name):
     return next(source for source in sources if source.key == name), 0
 
 
+def _is_npz(path) -> bool:
+    return str(path).lower().endswith(".npz")
+
+
 def _open_sources(path, stack) -> list:
-    """The stored arrays: one 2-D array, or 1-D arrays, one per column."""
-    if str(path).lower().endswith(".npz"):
+    """The stored arrays: one 2-D array, or 1-D arrays, one per column (a
+    .npz's archive stays open in ``stack``)."""
+    if _is_npz(path):
         return _open_npz(path, stack)
     return [_Source(lambda: open(path, "rb"), path, os.path.getsize(path))]
 

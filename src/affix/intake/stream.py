@@ -24,7 +24,10 @@ class ChunkStream:
     ((place, column) or None, place being DataError's keywords: {"line": n}
     or {"row": n}) and ``sha256`` (of the whole file; None for data in memory).
 
-    ``first_row`` is the number of data rows of the file before this pass
+    ``raw_chunks`` is an iterable of float64 chunks; one that reads the whole
+    file itself and offers ``hexdigest()`` is taken at its word for the
+    file's SHA-256 (it hashes what it reads), any other gets a FileDigest
+    thread of its own.  ``first_row`` is the number of data rows of the file before this pass
     (when it reads one part); ``first_line`` the line of the file's first data
     row (2 for a CSV, whose header is line 1), or None for sources without
     lines, whose rows are named by their number from 1.
@@ -45,7 +48,10 @@ class ChunkStream:
         return {"row": index + 1} if self.first_line is None else {"line": self.first_line + index}
 
     def __iter__(self):
-        digest = FileDigest(self.path) if self._digest else None
+        # A source that reads the whole file itself hashes it as it goes (see
+        # array_format.HashedRows); any other gets a thread that reads it again.
+        hashing = self._raw if hasattr(self._raw, "hexdigest") else None
+        digest = (hashing or FileDigest(self.path)) if self._digest else None
         for chunk in self._raw:
             count = len(chunk)
             # One BLAS sum of squares is finite and small unless some cell is
