@@ -281,20 +281,6 @@ MODEL_EDITS = {
 }
 
 
-@pytest.mark.bad_input("quantize")
-@pytest.mark.parametrize("case", MODEL_EDITS)
-def test_quantize_refuses_a_hand_edited_model_in_one_line(case, real_files, tmp_path):
-    edit, fragment = MODEL_EDITS[case]
-    data = copy.deepcopy(real_files["model"])
-    edit(data)
-    (tmp_path / "model.json").write_text(json.dumps(data))
-    done = run_affix("quantize", tmp_path / "model.json", "--range", "0:4095", "--out", tmp_path / "plan.json")
-    assert done.returncode == 2 and not (tmp_path / "plan.json").exists()
-    assert done.stderr == f"affix: error: {tmp_path / 'model.json'}: {fragment}" + done.stderr[len(
-        f"affix: error: {tmp_path / 'model.json'}: {fragment}"):]
-    assert done.stderr.count("\n") == 1, done.stderr
-
-
 PLAN_EDITS = {
     "a fractional input range": (lambda d: d["input_ranges"][0].__setitem__(1, 4095.5),
                                  "field 'input_ranges[0][1]': expected an integer"),
@@ -313,19 +299,6 @@ PLAN_EDITS = {
 }
 
 
-@pytest.mark.bad_input("emit")
-@pytest.mark.parametrize("case", PLAN_EDITS)
-def test_emit_refuses_a_hand_edited_plan_in_one_line(case, real_files, tmp_path):
-    edit, fragment = PLAN_EDITS[case]
-    data = copy.deepcopy(real_files["plan"])
-    edit(data)
-    (tmp_path / "plan.json").write_text(json.dumps(data))
-    done = run_affix("emit", tmp_path / "plan.json", "--lang", "all", "--name", "probe", "--out", tmp_path / "fw")
-    assert done.returncode == 2 and not (tmp_path / "fw").exists()
-    assert done.stderr.startswith(f"affix: error: {tmp_path / 'plan.json'}: {fragment}"), done.stderr
-    assert done.stderr.count("\n") == 1, done.stderr
-
-
 MANIFEST_EDITS = {
     "a file outside the folder": (lambda d: d["files"].__setitem__("c", ["../probe.c", "probe.h"]), "field 'files.c'"),
     "a name that injects C": (lambda d: d.__setitem__("name", "x);system(0"), "field 'name'"),
@@ -337,17 +310,30 @@ MANIFEST_EDITS = {
 }
 
 
-@pytest.mark.bad_input("verify")
-@pytest.mark.parametrize("case", MANIFEST_EDITS)
-def test_verify_refuses_a_hand_edited_manifest_in_one_line(case, real_files, tmp_path):
-    edit, fragment = MANIFEST_EDITS[case]
-    data = copy.deepcopy(real_files["manifest"])
+# kind -> (the file's name, the edits, the command that reads it with its other arguments, what it would write)
+CLI_EDITS = {
+    "model": ("model.json", MODEL_EDITS, ["quantize", "{file}", "--range", "0:4095", "--out", "{out}"], "plan.json"),
+    "plan": ("plan.json", PLAN_EDITS, ["emit", "{file}", "--lang", "all", "--name", "probe", "--out", "{out}"], "fw"),
+    "manifest": ("probe.manifest.json", MANIFEST_EDITS, ["verify", "{file}", "--vectors", "100"], None),
+}
+
+
+@pytest.mark.parametrize("kind, case", [
+    pytest.param(kind, case, marks=pytest.mark.bad_input(COMMAND[kind]), id=f"{kind}: {case}")
+    for kind, (_, edits, _, _) in CLI_EDITS.items() for case in edits
+])
+def test_a_hand_edited_file_is_refused_in_one_line(kind, case, real_files, tmp_path):
+    name, edits, command, output = CLI_EDITS[kind]
+    edit, fragment = edits[case]
+    data = copy.deepcopy(real_files[kind])
     edit(data)
-    (tmp_path / "probe.manifest.json").write_text(json.dumps(data))
-    done = run_affix("verify", tmp_path / "probe.manifest.json", "--vectors", "100")
+    file, out = tmp_path / name, tmp_path / (output or "unused")
+    file.write_text(json.dumps(data))
+    done = run_affix(*(arg.format(file=file, out=out) for arg in command))
     assert done.returncode == 2, done.stdout + done.stderr
-    assert done.stderr.startswith(f"affix: error: {tmp_path / 'probe.manifest.json'}: {fragment}"), done.stderr
+    assert done.stderr.startswith(f"affix: error: {file}: {fragment}"), done.stderr
     assert done.stderr.count("\n") == 1, done.stderr
+    assert not out.exists()
 
 
 @pytest.mark.bad_input("quantize")

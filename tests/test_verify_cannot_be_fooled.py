@@ -188,19 +188,14 @@ def test_a_module_that_does_not_import_is_one_line(tmp_path, fault, fragment):
 
 
 @pytest.mark.bad_input("verify")
-def test_a_function_that_raises_is_one_line(tmp_path):
-    require("micropython")
+@pytest.mark.parametrize("function, line, raising, fragments", [
+    ("estimate_into", "    out[0] = x", "    out[0] = x // 0", ("MicroPython probe.py estimate_into():", "ZeroDivisionError")),
+    ("self_test", "    return True", "    return _CHECKS[99]", ("self_test() raised", "IndexError")),
+])
+def test_a_function_that_raises_is_one_line(tmp_path, function, line, raising, fragments):
     folder = emitted(tmp_path)
-    tamper(folder, "probe.py", _in_function("estimate_into", "    out[0] = x", "    out[0] = x // 0"))
-    verify_fails(folder, "MicroPython probe.py estimate_into():", "ZeroDivisionError")
-
-
-@pytest.mark.bad_input("verify")
-def test_a_self_test_that_raises_is_one_line(tmp_path):
-    require("micropython")
-    folder = emitted(tmp_path)
-    tamper(folder, "probe.py", _in_function("self_test", "    return True", "    return _CHECKS[99]"))
-    verify_fails(folder, "self_test() raised", "IndexError")
+    tamper(folder, "probe.py", _in_function(function, line, raising))
+    verify_fails(folder, *fragments)
 
 
 @pytest.mark.bad_input("verify")
