@@ -59,6 +59,7 @@ def plan_fixed_point(
         unsigned where no input can be negative).
     search: False rounds every coefficient on its own (no error feedback).
     """
+    model.validate()  # its file schema: a model built in Python meets what a model file must
     _check_choice(coef_bits, COEF_BITS, "coef_bits")
     _check_choice(acc_bits, ACC_BITS, "acc_bits")
     _check_choice(output_ctype, tuple(OUTPUT_CTYPES), "output_ctype")
