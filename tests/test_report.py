@@ -54,7 +54,9 @@ def write_diff(folder: Path) -> None:
     diff = {
         "interface_changed": False,
         "interface_changes": [],
+        "input_order": demo_scenario.INPUTS,
         "outputs": {name: {"gain_change": (gain[i] - previous[i, 1:]).tolist(),
+                           "gain_relative_change": ((gain[i] - previous[i, 1:]) / np.abs(previous[i, 1:])).tolist(),
                            "offset_change": float(offset[i] - previous[i, 0])}
                     for i, name in enumerate(demo_scenario.OUTPUTS)},
     }
@@ -320,6 +322,7 @@ def test_missing_required_file_is_one_error_line(build, tmp_path, missing):
 @pytest.mark.parametrize("file, content, words", [
     ("fleet.csv", "unit,rows\nu1,10\n", "the header must be"),
     ("diff.json", '{"interface_changed": "no", "interface_changes": []}', "not a diff"),
+    ("diff.json", '{"interface_changed": false, "interface_changes": [], "input_order": ["b1"]}', "input_order differs"),
     ("build.json", '{"format": "affix.build/1", "tool_version": "1", "name": "x", "project": "/abs/affix.toml", '
                    '"data": []}', "must be a relative path"),
     ("verification.json", '{"passed": true}', "not a verification report"),

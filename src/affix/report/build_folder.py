@@ -198,6 +198,8 @@ def _diff(data, path, model: Model) -> dict:
     if not (isinstance(data, dict) and isinstance(data.get("interface_changed"), bool)
             and isinstance(data.get("interface_changes"), list)):
         raise FileFormatError("not a diff (interface_changed, interface_changes)", path)
+    if data.get("input_order", list(model.inputs)) != list(model.inputs):
+        raise FileFormatError("its gains are for other inputs than model.json's (input_order differs)", path)
     outputs = data.get("outputs", {})
     if not isinstance(outputs, dict):
         raise FileFormatError("'outputs' must map output names to their changes", path)
@@ -208,6 +210,10 @@ def _diff(data, path, model: Model) -> dict:
             raise FileFormatError(
                 f"output '{name}' needs gain_change (one number per input) and offset_change", path
             )
+        relative = change.get("gain_relative_change")  # optional; None where the old gain was 0 or absent
+        if relative is not None and not (isinstance(relative, list) and len(relative) == model.n_inputs
+                                         and all(r is None or _is_number(r) for r in relative)):
+            raise FileFormatError(f"output '{name}': gain_relative_change needs a number or null per input", path)
     return data
 
 

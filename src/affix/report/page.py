@@ -279,16 +279,27 @@ def changes_section(folder: BuildFolder) -> dict:
     rows = []
     if changed:
         values = np.array([diff["outputs"][name]["gain_change"] for name in changed], dtype=float)
-        largest = np.abs(values).max(axis=1, keepdims=True)
-        share = np.divide(values, largest, out=np.zeros_like(values), where=largest > 0)
+        relative = [diff["outputs"][name].get("gain_relative_change") for name in changed]
+        if all(r is not None for r in relative):  # colour by the relative change, where the diff gives it
+            colour = np.array([[0.0 if v is None else v for v in r] for r in relative])
+            label = "relative change / the row's largest"
+        else:
+            colour, label = values, "change / the row's largest"
+        largest = np.abs(colour).max(axis=1, keepdims=True)
+        share = np.divide(colour, largest, out=np.zeros_like(colour), where=largest > 0)
         image = plots.matrix(values, share, changed, list(model.inputs),
                              "Coefficient changes since the previous build: the values are the gain changes; the "
-                             "colour shows their sign and size within each output", "change / the row's largest",
-                             "changes", diverging=True)
-        rows = [{"output": name,
-                 "offset": Number(diff["outputs"][name]["offset_change"], pointer("diff.json", "outputs", name,
-                                                                                    "offset_change"))}
-                for name in changed]
+                             "colour shows their sign and size within each output", label, "changes", diverging=True)
+        for k, name in enumerate(changed):
+            entry = diff["outputs"][name]
+            row = {"output": name, "offset": Number(entry["offset_change"],
+                                                    pointer("diff.json", "outputs", name, "offset_change")),
+                   "input": None, "relative": None}
+            if relative[k] is not None and any(r is not None for r in relative[k]):
+                j = max((j for j, r in enumerate(relative[k]) if r is not None), key=lambda j: abs(relative[k][j]))
+                row["input"] = model.inputs[j]
+                row["relative"] = Number(relative[k][j], pointer("diff.json", "outputs", name, "gain_relative_change", j))
+            rows.append(row)
     return {"absent": None, "interface_changed": diff["interface_changed"],
             "interface_changes": [_change_text(item) for item in diff["interface_changes"]],
             "image": image, "rows": rows}
