@@ -98,8 +98,11 @@ def big_csv(path, megabytes):
 def children(pid) -> list[int]:
     found = []
     for task in os.listdir(f"/proc/{pid}/task"):
-        with open(f"/proc/{pid}/task/{task}/children") as f:
-            found += [int(c) for c in f.read().split()]
+        try:
+            with open(f"/proc/{pid}/task/{task}/children") as f:
+                found += [int(c) for c in f.read().split()]
+        except FileNotFoundError:  # the thread ended between the listing and the read
+            continue
     return found
 
 
