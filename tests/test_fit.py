@@ -270,8 +270,12 @@ def test_model_carries_the_input_moments_the_quantizer_needs():
     model = affix.fit((y, x))
     np.testing.assert_allclose(model.input_mean, y.mean(axis=0), rtol=1e-12)
     np.testing.assert_allclose(model.input_covariance, np.cov(y, rowvar=False), rtol=1e-12)  # numpy's 1/(n-1)
+    # The extremes of each input, for the coverage of a declared range: exactly numpy's.
+    np.testing.assert_array_equal(model.input_min, y.min(axis=0))
+    np.testing.assert_array_equal(model.input_max, y.max(axis=0))
     again = affix.Model.from_dict(model.to_dict())
     np.testing.assert_array_equal(again.input_covariance, model.input_covariance)
+    np.testing.assert_array_equal(again.input_max, model.input_max)
 
 
 @pytest.mark.bad_input("fit")
@@ -283,7 +287,7 @@ def test_a_spread_past_double_precision_is_refused_naming_the_column():
     from affix.fit.estimator import _check_rows
     from affix.statistics import Moments
 
-    huge = Moments(10**9, np.zeros(3), np.diag([1.0, np.inf, 1.0]))
+    huge = Moments(10**9, np.zeros(3), np.diag([1.0, np.inf, 1.0]), np.zeros(3), np.zeros(3))
     with pytest.raises(DataError, match=r"^log.csv, column 'y2': the sum of squared deviations overflows"):
         _check_rows(huge, ["y1", "y2"], ["y1", "y2", "x"], "log.csv")
 

@@ -157,3 +157,28 @@ def test_ctrl_c_during_a_parallel_fit_ends_everything_in_one_line(tmp_path_facto
     assert not group_alive(cli.pid), "a worker process outlived the command"
     assert took <= 2.0  # the bound for ending every worker
     assert list(folder.iterdir()) == []  # no model, no temporary file
+
+
+def test_several_files_fit_as_one_data_set_and_the_inputs_seen_are_shown(tmp_path):
+    data = good_csv(tmp_path, rows=90)
+    lines = data.read_text().splitlines()
+    first = write(tmp_path / "part1.csv", "\n".join(lines[:41]) + "\n")
+    second = write(tmp_path / "part2.csv", "\n".join(lines[:1] + lines[41:]) + "\n")
+    result = run_affix("fit", first, second, "--inputs", "b1,b2,b3", "--outputs", "Fx,Fz", "--folds", "0",
+                       "--out", tmp_path / "parts.json", "--json")
+    assert result.returncode == 0, result.stderr
+    run_affix("fit", data, "--inputs", "b1,b2,b3", "--outputs", "Fx,Fz", "--folds", "0", "--out", tmp_path / "whole.json")
+    parts, whole = Model.load(tmp_path / "parts.json"), Model.load(tmp_path / "whole.json")
+    assert parts.n_samples == whole.n_samples == 90
+    np.testing.assert_allclose(parts.gain, whole.gain, rtol=1e-12, atol=1e-12 * np.abs(whole.gain).max())
+    np.testing.assert_array_equal(parts.input_min, whole.input_min)
+    # The digest of the digests, one per line: what `sha256sum part1.csv part2.csv | cut -c1-64 | sha256sum` prints.
+    import hashlib
+
+    digests = "".join(hashlib.sha256(p.read_bytes()).hexdigest() + "\n" for p in (first, second))
+    assert parts.data_sha256 == hashlib.sha256(digests.encode()).hexdigest()
+    summary = json.loads(result.stdout)
+    y = np.loadtxt(data, delimiter=",", skiprows=1)[:, :3]  # numpy's own reading of the same rows
+    assert summary["input_min"] == y.min(axis=0).tolist() and summary["input_max"] == y.max(axis=0).tolist()
+    table = run_affix("fit", first, second, "--inputs", "b1,b2,b3", "--outputs", "Fx,Fz", "--out", tmp_path / "t.json")
+    assert f"inputs seen: b1 {y[:, 0].min():.6g}..{y[:, 0].max():.6g}" in table.stdout

@@ -243,6 +243,8 @@ def test_a_csv_split_across_processes_gives_the_one_pass_result(tmp_path):
         assert a.count == b.count
         np.testing.assert_allclose(a.mean, b.mean, rtol=1e-12)
         np.testing.assert_allclose(a.scatter, b.scatter, rtol=1e-12, atol=1e-12 * np.abs(b.scatter).max())
+        np.testing.assert_array_equal(a.low, b.low)
+        np.testing.assert_array_equal(a.high, b.high)
 
 
 @pytest.mark.bad_input("fit")

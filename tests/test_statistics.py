@@ -16,6 +16,9 @@ def assert_same(a: Moments, b: Moments, rtol=1e-12):
     assert a.count == b.count
     np.testing.assert_allclose(a.mean, b.mean, rtol=rtol)
     np.testing.assert_allclose(a.scatter, b.scatter, rtol=rtol, atol=rtol * np.abs(b.scatter).max())
+    # The extremes are exact whatever the chunking: min/max never round.
+    np.testing.assert_array_equal(a.low, b.low)
+    np.testing.assert_array_equal(a.high, b.high)
 
 
 def test_moments_match_numpy_mean_and_covariance():
@@ -23,6 +26,8 @@ def test_moments_match_numpy_mean_and_covariance():
     m = Moments.of(rows)
     np.testing.assert_allclose(m.mean, rows.mean(axis=0), rtol=1e-14)
     np.testing.assert_allclose(m.covariance, np.cov(rows, rowvar=False), rtol=1e-11)  # numpy.cov, 1/(n-1)
+    np.testing.assert_array_equal(m.low, rows.min(axis=0))
+    np.testing.assert_array_equal(m.high, rows.max(axis=0))
 
 
 def test_pairwise_merge_of_shuffled_chunks_equals_one_pass():

@@ -6,7 +6,8 @@ Besides gain and offset it carries what later stages need to judge the
 estimator without the raw data: the error covariance and cross-validated RMS
 (its own accuracy) and the first and second moments of the calibration inputs
 (so the quantizer can evaluate the mean-square effect of coefficient rounding
-exactly, as a quadratic form).
+exactly, as a quadratic form) and their extremes (so a declared input range
+can be compared with what the calibration covered).
 """
 from __future__ import annotations
 
@@ -31,6 +32,8 @@ class Model:
     n_samples: int = 0
     input_mean: np.ndarray | None = None  # (n_inputs,)
     input_covariance: np.ndarray | None = None  # (n_inputs, n_inputs), 1/(n-1)
+    input_min: np.ndarray | None = None  # (n_inputs,), smallest value of each input in the calibration data
+    input_max: np.ndarray | None = None  # (n_inputs,), largest
     ridge: float = 0.0
     folds: int = 0
     condition_number: float | None = None
@@ -45,7 +48,7 @@ class Model:
         object.__setattr__(self, "offset", np.asarray(self.offset, dtype=float).reshape(-1))
         object.__setattr__(self, "inputs", tuple(self.inputs))
         object.__setattr__(self, "outputs", tuple(self.outputs))
-        for name in ("error_covariance", "cv_rms", "input_mean", "input_covariance"):
+        for name in ("error_covariance", "cv_rms", "input_mean", "input_covariance", "input_min", "input_max"):
             value = getattr(self, name)
             if value is not None:
                 object.__setattr__(self, name, np.asarray(value, dtype=float))
@@ -92,6 +95,8 @@ class Model:
             "n_samples": int(self.n_samples),
             "input_mean": arr(self.input_mean),
             "input_covariance": arr(self.input_covariance),
+            "input_min": arr(self.input_min),
+            "input_max": arr(self.input_max),
             "ridge": float(self.ridge),
             "folds": int(self.folds),
             "condition_number": self.condition_number,
@@ -160,6 +165,14 @@ def _rms_agrees(values) -> None:
         schema.fail("rms", "disagrees with the square root of the error_covariance diagonal")
 
 
+def _extremes_are_a_range(values) -> None:
+    low, high = values["input_min"], values["input_max"]
+    if (low is None) != (high is None):
+        schema.fail("input_min" if low is None else "input_max", "must come with input_min and input_max both")
+    if low is not None and any(lo > hi for lo, hi in zip(low, high)):
+        schema.fail("input_min", "exceeds input_max")
+
+
 def _folds_are_a_split(values) -> None:
     if values["folds"] == 1:
         schema.fail("folds", "must be 0 (no cross-validation) or at least 2, got 1")
@@ -180,11 +193,13 @@ MODEL_SCHEMA = schema.Schema(
     schema.Field("n_samples", COUNT, default=0),
     schema.Field("input_mean", schema.OrNone(schema.Array(("inputs",), schema.Number())), default=None),
     schema.Field("input_covariance", schema.OrNone(schema.Covariance("inputs")), default=None),
+    schema.Field("input_min", schema.OrNone(schema.Array(("inputs",), schema.Number())), default=None),
+    schema.Field("input_max", schema.OrNone(schema.Array(("inputs",), schema.Number())), default=None),
     schema.Field("ridge", schema.Number(min=0.0), default=0.0),
     schema.Field("folds", COUNT, default=0),
     # The condition number of a correlation matrix is at least 1 (up to rounding).
     schema.Field("condition_number", schema.OrNone(schema.Number(min=1.0 - 1e-9)), default=None),
     schema.Field("data_sha256", schema.OrNone(schema.SHA256), default=None),
     schema.Field("dropped_rows", COUNT, default=0),
-    rules=(_error_covariance_is_a_covariance, _rms_agrees, _folds_are_a_split),
+    rules=(_error_covariance_is_a_covariance, _rms_agrees, _extremes_are_a_range, _folds_are_a_split),
 )

@@ -20,8 +20,9 @@ from affix.fit.adopt import adopt, default_names, is_fitted_linear
 from affix.fit.passes import file_moments, stream_moments
 from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
 from affix.intake import from_array
+from affix.intake.digest import combined
 from affix.model import Model
-from affix.statistics import MAX_FOLDS, merge_all
+from affix.statistics import MAX_FOLDS, merge_all, merge_folds
 
 
 # Below this magnitude a value's square underflows to zero or loses digits
@@ -48,6 +49,8 @@ def fit(
     ``data`` is one of
       * a path to a CSV (columns by header name), .npy or .npz file -- see
         :mod:`affix.intake`; ``inputs`` and ``outputs`` name the columns;
+      * a list of such paths, fitted as one data set (``data_sha256`` is
+        then the digest of their digests, see :func:`affix.intake.digest.combined`);
       * a mapping of column name -> values (a dict of arrays, a pandas DataFrame);
       * a pair ``(y, x)`` of arrays, rows are samples; names default to
         y1.. and x1..;
@@ -69,17 +72,15 @@ def fit(
             f"must be 0 (no cross-validation) or a whole number from 2 to {MAX_FOLDS}, got {folds!r}", parameter="folds"
         )
     folds = int(folds)
-    inputs, outputs, path, values = _open(data, inputs, outputs)
+    inputs, outputs, paths, values = _open(data, inputs, outputs)
     m, width = len(inputs), len(inputs) + len(outputs)
-    if path is not None:
-        parts, dropped, sha256 = file_moments(
-            path, inputs + outputs, folds, chunk_rows=chunk_rows, drop_invalid=drop_invalid
-        )
+    if paths is not None:
+        parts, dropped, sha256 = _files_moments(paths, inputs + outputs, folds, chunk_rows, drop_invalid)
     else:
         stream = from_array(values, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
         parts, dropped, sha256 = stream_moments(stream, width, folds), stream.rows_dropped, None
     moments = merge_all(parts, width)
-    _check_rows(moments, inputs, inputs + outputs, path)
+    _check_rows(moments, inputs, inputs + outputs, paths[0] if paths and len(paths) == 1 else None)
     r = correlation(moments, m)
     condition = conditioning.condition_number(r)
     solution = _solve(moments, m, ridge, r, condition, inputs)
@@ -99,6 +100,8 @@ def fit(
         n_samples=moments.count,
         input_mean=moments.mean[:m],
         input_covariance=covariance[:m, :m],
+        input_min=moments.low[:m],
+        input_max=moments.high[:m],
         ridge=float(ridge),
         folds=folds,
         condition_number=condition if math.isfinite(condition) else None,
@@ -107,12 +110,24 @@ def fit(
     )
 
 
+def _files_moments(paths, columns, folds, chunk_rows, drop_invalid):
+    """Per-fold moments of several files as one data set; each file's rows are dealt to the folds from its first."""
+    parts, dropped, digests = None, 0, []
+    for path in paths:
+        more, count, sha256 = file_moments(path, columns, folds, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
+        parts = more if parts is None else merge_folds(parts, more)
+        dropped += count
+        digests.append(sha256)
+    return parts, dropped, combined(digests)
+
+
 def _open(data, inputs, outputs):
-    """(inputs, outputs, path, None) for a file, (inputs, outputs, None, rows) for data in memory."""
-    if isinstance(data, (str, os.PathLike)):
+    """(inputs, outputs, paths, None) for files, (inputs, outputs, None, rows) for data in memory."""
+    if isinstance(data, (str, os.PathLike)) or _is_path_list(data):
         if inputs is None or outputs is None:
             raise UsageError("fitting a file needs the names of its input and output columns")
-        return (*_check_names(inputs, outputs), data, None)
+        paths = [data] if isinstance(data, (str, os.PathLike)) else list(data)
+        return (*_check_names(inputs, outputs), paths, None)
     if isinstance(data, Mapping) or hasattr(data, "columns"):
         if inputs is None or outputs is None:
             raise UsageError("fitting named columns needs the names of the input and output columns")
@@ -138,6 +153,10 @@ def _open(data, inputs, outputs):
     raise UsageError(
         f"cannot fit {type(data).__name__}: give a file path, a mapping of columns, a pair (y, x) or a fitted estimator"
     )
+
+
+def _is_path_list(data) -> bool:
+    return isinstance(data, (list, tuple)) and bool(data) and all(isinstance(p, (str, os.PathLike)) for p in data)
 
 
 def _check_names(inputs, outputs):

@@ -135,3 +135,13 @@ class FileDigest:
                 self._path,
             )
         return self._sha.hexdigest()
+
+
+def combined(digests) -> str:
+    """One digest for data read from several files: a single file's own
+    SHA-256, else the SHA-256 of the files' hex digests, one per line in the
+    order the files were read (``sha256sum FILES | cut -c1-64 | sha256sum``)."""
+    digests = list(digests)
+    if len(digests) == 1:
+        return digests[0]
+    return hashlib.sha256("".join(f"{d}\n" for d in digests).encode()).hexdigest()

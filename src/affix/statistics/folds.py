@@ -75,26 +75,28 @@ def fold_shares(chunk, first_row: int, folds: int, seed: int = FOLD_SEED):
     The rows are gathered fold by fold (one take, not one boolean mask per
     fold) and shifted by the chunk's first row, which keeps the final
     subtraction of the mean's outer product well conditioned; then each fold
-    needs one column sum and one product Z^T Z.
+    needs one column sum and one product Z^T Z, and its extremes.
     """
     chunk = np.asarray(chunk, dtype=np.float64)
     if len(chunk) == 0:
         return []
     shift = chunk[0].copy()
     if folds <= 1:
-        return [(0, _from_shifted(chunk - shift, shift))]
+        return [(0, _from_shifted(chunk - shift, shift, chunk.min(axis=0), chunk.max(axis=0)))]
     order, spans = _fold_order(first_row % period(folds), len(chunk), folds, seed)
     # np.take copies contiguous rows fastest; the column-major chunks
     # pandas yields for CSV gather about 8x faster by fancy indexing.
-    shifted = np.take(chunk, order, axis=0) if chunk.flags.c_contiguous else chunk[order]
-    shifted -= shift
-    return [(fold, _from_shifted(shifted[start:end], shift)) for fold, start, end in spans]
+    rows = np.take(chunk, order, axis=0) if chunk.flags.c_contiguous else chunk[order]
+    # The extremes from the raw values, before the shift: exact, not x - s + s.
+    extremes = [(rows[start:end].min(axis=0), rows[start:end].max(axis=0)) for _, start, end in spans]
+    rows -= shift
+    return [(fold, _from_shifted(rows[start:end], shift, *ends)) for (fold, start, end), ends in zip(spans, extremes)]
 
 
-def _from_shifted(part: np.ndarray, shift: np.ndarray) -> Moments:
+def _from_shifted(part: np.ndarray, shift: np.ndarray, low: np.ndarray, high: np.ndarray) -> Moments:
     n = len(part)
     sums = np.ones(n) @ part  # as a BLAS product: several times faster than sum(axis=0) on rows
-    return Moments(n, shift + sums / n, part.T @ part - np.outer(sums, sums) / n)
+    return Moments(n, shift + sums / n, part.T @ part - np.outer(sums, sums) / n, low, high)
 
 
 def merge_folds(a: list[Moments], b: list[Moments]) -> list[Moments]:

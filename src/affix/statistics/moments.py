@@ -1,8 +1,9 @@
 """Mergeable first and second moments of a set of rows.
 
-A :class:`Moments` holds the row count, the column means and the centred
-scatter matrix (sum of outer products of deviations from the mean).  Two of
-them combine with the pairwise update of Chan, Golub & LeVeque (1979),
+A :class:`Moments` holds the row count, the column means, the centred
+scatter matrix (sum of outer products of deviations from the mean) and each
+column's smallest and largest value.  Two of them combine with the pairwise
+update of Chan, Golub & LeVeque (1979),
 
     n = na + nb,   d = mean_b - mean_a,
     mean = mean_a + d * nb / n,
@@ -10,7 +11,7 @@ them combine with the pairwise update of Chan, Golub & LeVeque (1979),
 
 which never forms raw sums of squares, so large offsets (ADC counts near
 full scale) cost no precision, and parts merge in any order to the same
-result up to rounding.
+result up to rounding; the extremes merge exactly, element by element.
 """
 from __future__ import annotations
 
@@ -24,10 +25,12 @@ class Moments:
     count: int
     mean: np.ndarray  # (d,)
     scatter: np.ndarray  # (d, d), centred: sum of (row - mean)(row - mean)^T
+    low: np.ndarray  # (d,), each column's smallest value (+inf while empty)
+    high: np.ndarray  # (d,), its largest (-inf while empty)
 
     @classmethod
     def empty(cls, width: int) -> "Moments":
-        return cls(0, np.zeros(width), np.zeros((width, width)))
+        return cls(0, np.zeros(width), np.zeros((width, width)), np.full(width, np.inf), np.full(width, -np.inf))
 
     @classmethod
     def of(cls, rows) -> "Moments":
@@ -37,7 +40,7 @@ class Moments:
             return cls.empty(rows.shape[1])
         mean = rows.mean(axis=0)
         centred = rows - mean
-        return cls(len(rows), mean, centred.T @ centred)
+        return cls(len(rows), mean, centred.T @ centred, rows.min(axis=0), rows.max(axis=0))
 
     @property
     def width(self) -> int:
@@ -57,7 +60,7 @@ class Moments:
         delta = other.mean - self.mean
         mean = self.mean + delta * (other.count / n)
         scatter = self.scatter + other.scatter + np.outer(delta, delta) * (self.count * other.count / n)
-        return Moments(n, mean, scatter)
+        return Moments(n, mean, scatter, np.minimum(self.low, other.low), np.maximum(self.high, other.high))
 
 
 def merge_all(parts, width: int) -> Moments:

@@ -21,7 +21,7 @@ def register(sub):
         description="Fit gain and offset by least squares from a CSV (columns by header name), "
         ".npy (columns named 0, 1, ...) or .npz file, streamed in constant memory.",
     )
-    parser.add_argument("data", help="calibration data file (.csv, .npy or .npz)")
+    parser.add_argument("data", nargs="+", help="calibration data file(s) (.csv, .npy or .npz), fitted as one data set")
     parser.add_argument("--inputs", required=True, help="comma-separated input columns (the raw readings y)")
     parser.add_argument("--outputs", required=True, help="comma-separated output columns (the quantities x)")
     parser.add_argument("--out", required=True, help="model file to write (JSON)")
@@ -37,7 +37,7 @@ def run(args) -> int:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         model = affix.fit(
-            args.data,
+            args.data if len(args.data) > 1 else args.data[0],
             _names(args.inputs, "inputs"),
             _names(args.outputs, "outputs"),
             ridge=args.ridge,
@@ -76,8 +76,14 @@ def summarise(model, out) -> dict:
         "folds": model.folds,
         "condition_number": model.condition_number,
         "data_sha256": model.data_sha256,
+        "input_min": _list(model.input_min),
+        "input_max": _list(model.input_max),
         "per_output": rows,
     }
+
+
+def _list(values):
+    return None if values is None else [float(v) for v in values]
 
 
 def format_table(summary) -> str:
@@ -92,6 +98,9 @@ def format_table(summary) -> str:
         cv = "-" if r["cv_rms"] is None else f"{r['cv_rms']:#.4g}"
         gains = ", ".join(f"{g['input']} {g['gain']:+.4g}" for g in r["largest_gains"])
         lines.append(f"{r['output']:<{width}}  {r['rms']:>#11.4g}  {cv:>11}  {gains}")
+    if summary["input_min"] is not None:
+        seen = zip(summary["inputs"], summary["input_min"], summary["input_max"])
+        lines.append("inputs seen: " + ", ".join(f"{name} {lo:.6g}..{hi:.6g}" for name, lo, hi in seen))
     lines.append(f"model written to {summary['model']}")
     return "\n".join(lines)
 
