@@ -9,6 +9,7 @@ Exit statuses:
     2  bad input: data, model/plan/manifest file, option value
     3  the accuracy budget cannot be met by any configuration
     4  an external tool the command needs is missing or failed
+    5  the pinned firmware interface would change
 
 Library code names the *parameter* at fault, never a command-line option:
 ``UsageError(..., parameter="input_ranges")``, and inside any message
@@ -99,17 +100,41 @@ class FitError(AffixError):
 
 
 class FileFormatError(AffixError):
-    """A model, plan or manifest file is not what it claims to be."""
+    """A model, plan, manifest or project file is not what it claims to be.
 
-    def __init__(self, message: str, path=None):
-        super().__init__(f"{path}: {message}" if path is not None else message)
-        self.path = path
+    With ``line`` the message opens ``path:line:``, the form editors jump to.
+    """
+
+    def __init__(self, message: str, path=None, line: int | None = None):
+        where = None if path is None else (str(path) if line is None else f"{path}:{line}")
+        super().__init__(f"{where}: {message}" if where is not None else message)
+        self.path, self.line = path, line
+
+
+class NoConfigurationError(UsageError):
+    """No configuration of the allowed widths can hold the estimator.
+
+    ``per_output`` maps each output that fits none to the reason, in the most
+    capable configuration tried.
+    """
+
+    def __init__(self, message: str, per_output=None):
+        super().__init__(message)
+        self.per_output = dict(per_output or {})
 
 
 class BudgetError(AffixError):
-    """No configuration meets the accuracy budget; the message gives the best figures."""
+    """No configuration meets the accuracy budget; the message gives the best figures.
+
+    ``per_output`` maps each output whose best figure misses its limit to a
+    short account of it.
+    """
 
     exit_code = 3
+
+    def __init__(self, message: str, per_output=None):
+        super().__init__(message)
+        self.per_output = dict(per_output or {})
 
 
 class VerificationError(AffixError):
@@ -128,3 +153,10 @@ class ToolError(AffixError):
     """A compiler or runtime that the command needs is missing or failed."""
 
     exit_code = 4
+
+
+class InterfaceError(AffixError):
+    """The build would change the pinned firmware interface (names, order,
+    types, box or output scales) that code calling the estimator relies on."""
+
+    exit_code = 5

@@ -17,7 +17,7 @@ from dataclasses import dataclass, replace
 from itertools import product
 
 from affix.arithmetic import COEF_BITS, OUTPUT_CTYPES
-from affix.errors import BudgetError, UsageError
+from affix.errors import BudgetError, NoConfigurationError
 from affix.quantize.analysis import Accuracy, Problem, accuracy
 from affix.quantize.box import reach
 from affix.quantize.budget import WORST_CASE, Budget
@@ -26,7 +26,6 @@ from affix.quantize.lsb import design_at_finest_lsb
 from affix.quantize.shift import Infeasible
 from affix.targets import DEFAULT_TARGET, get_target
 from affix.targets.costs import evaluation_cost
-
 
 @dataclass(frozen=True)
 class Choice:
@@ -60,12 +59,13 @@ def configurations(coef_bits=None, acc_bits=None, output_ctype=None, *, target=D
 
 
 def design_configuration(problem: Problem, config: Configuration) -> tuple[OutputDesign, ...]:
-    """Every output designed in this configuration; Infeasible names the output at fault."""
+    """Every output designed in this configuration; Infeasible names each output at fault."""
     too_wide = [name for name, r in zip(problem.inputs, reach(problem.box)) if r >= config.limit]
     if too_wide:
-        raise Infeasible(f"input '{too_wide[0]}' does not fit a {config.acc_bits}-bit accumulator"
-                         + ("" if config.limit == 2 ** (config.acc_bits - 1) else " within the target's limit"))
-    designs = []
+        reason = (f"input '{too_wide[0]}' does not fit a {config.acc_bits}-bit accumulator"
+                  + ("" if config.limit == 2 ** (config.acc_bits - 1) else " within the target's limit"))
+        raise Infeasible(reason, {name: reason for name in problem.outputs})
+    designs, failures = [], {}
     for name, gain, offset, lsb in zip(problem.outputs, problem.gain, problem.offset, problem.lsb):
         arguments = (config, problem.box, problem.moments, problem.rounding, problem.search)
         try:
@@ -75,7 +75,10 @@ def design_configuration(problem: Problem, config: Configuration) -> tuple[Outpu
                 designs.append(design_output(gain, float(offset), lsb, *arguments))
         except Infeasible as exc:
             at = "" if lsb is None else f" at lsb {lsb:g}"
-            raise Infeasible(f"output '{name}'{at}: {exc}") from None
+            failures[name] = f"{exc}{at}"
+    if failures:
+        first = next(iter(failures))
+        raise Infeasible(f"output '{first}': {failures[first]}", failures)
     return tuple(designs)
 
 
@@ -92,15 +95,15 @@ def choose(problem: Problem, configs, budget: Budget | None) -> Choice:
             return replace(choice, passed_over=feasible[-1] if feasible else None)
         feasible.append(choice)
     if not feasible:
-        raise UsageError(f"no configuration of the allowed widths works: {reason}")
+        raise NoConfigurationError(f"no configuration of the allowed widths works: {reason}", reason.per_output)
     if budget.default:
         return min(feasible, key=lambda c: budget.shortfall(c.accuracy))
-    raise BudgetError(_best_achievable(problem, feasible, budget))
+    raise _best_achievable(problem, feasible, budget)
 
 
-def _best_achievable(problem, feasible, budget) -> str:
+def _best_achievable(problem, feasible, budget) -> BudgetError:
     what = "worst-case deviation" if budget.kind == WORST_CASE else "total RMS"
-    parts = []
+    parts, missed = [], {}
     for i, (name, limit) in enumerate(zip(problem.outputs, budget.limits)):
         if limit is not None:
             best = min(feasible, key=lambda c: budget.figures(c.accuracy)[i])
@@ -109,7 +112,9 @@ def _best_achievable(problem, feasible, budget) -> str:
                 f"{name} {figure:.6g} (limit {limit:.6g}; coef {best.config.coef_bits}, "
                 f"acc {best.config.acc_bits}, {best.config.output_ctype})"
             )
-    return f"no configuration meets the {what} budget; best achievable: " + ", ".join(parts)
+            if figure > limit:
+                missed[name] = f"{what} {figure:.4g} above its budget {limit:.4g}"
+    return BudgetError(f"no configuration meets the {what} budget; best achievable: " + ", ".join(parts), missed)
 
 
 def missed_outputs(problem: Problem, choice: Choice, budget: Budget) -> list[dict]:

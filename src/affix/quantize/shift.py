@@ -18,7 +18,14 @@ from affix.quantize.rounding_error import round_nearest_ties_up, shift_error
 
 
 class Infeasible(Exception):
-    """This output cannot be built in this configuration at this lsb; the message says why."""
+    """This output cannot be built in this configuration at this lsb; the message says why.
+
+    Raised for a whole configuration, ``per_output`` holds the reason of each output at fault.
+    """
+
+    def __init__(self, message: str, per_output=None):
+        super().__init__(message)
+        self.per_output = dict(per_output or {})
 
 
 @dataclass(frozen=True, eq=False)
