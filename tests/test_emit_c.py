@@ -142,7 +142,12 @@ def test_only_freestanding_headers_and_no_float_in_int_code(tmp_path, arith, sty
             assert not re.search(rf"\b{re.escape(word)}\b", selftest_free), word
         if arith == "int":
             assert not re.search(r"\bfloat\b", code)
-            assert not re.search(r"\d\.\d|\de[+-]\d", code)  # no floating constants either
+            # The scales are double constants for the caller; affix's own code never expands them.
+            scales = re.findall(r"^#define (PROBE_lsb_\w+) ", code, flags=re.M)
+            assert len(scales) == (3 if filename == "probe.h" else 0)
+            assert not any(re.search(rf"\b{s}\b", code.split(s, 1)[1]) for s in scales)
+            computing = re.sub(r"^#define PROBE_lsb_.*$", "", code, flags=re.M)
+            assert not re.search(r"\d\.\d|\de[+-]\d", computing)  # no floating constants either
         if style == "unrolled" and filename == "probe.c":
             assert "static const" not in selftest_free  # immediates, no tables
 
@@ -233,11 +238,12 @@ def test_float32_error_bound_in_the_header_holds(plan_kind):
     import numpy as np
 
     from affix.emit.context import build_context
+    from affix.interface import describe
     from affix.float32_arithmetic import Float32Estimator
     from affix.verify.vectors import vector_sets
 
     plan = random_plan(7, 4, 3, **PLANS[plan_kind])
-    context = build_context(plan, "probe", arith="float32")
+    context = build_context(plan, "probe", describe(plan, "probe", languages=("c",), arith="float32"), arith="float32")
     sets = vector_sets(plan.input_ranges, context["input_ctype"], n_random=200, seed=5)
     y = np.vstack([sets["corners"].chunk(0), sets["random"].chunk(0)])
     got = Float32Estimator(plan.gain, plan.offset, plan.input_ranges).evaluate(y)

@@ -20,7 +20,7 @@ from hypothesis import HealthCheck, given, settings, strategies as st
 
 from affix.emit.c import render_c
 from affix.emit.micropython import render_micropython
-from affix.emit.names import INFIX_IN, INFIX_OUT, INFIXES, check_identifier, check_names, names_could_clash
+from affix.emit.names import INFIX_IN, INFIX_LSB, INFIX_OUT, INFIXES, check_identifier, check_names, names_could_clash
 from affix.emit.templates import render
 from affix.emit.writer import emit
 from affix.errors import UsageError
@@ -154,7 +154,7 @@ def test_infixes_are_prefix_free():
 
 
 def test_every_generated_identifier_is_a_fixed_word_or_an_infix_and_a_users_name():
-    users = {INFIX_IN: set(RULE_PLAN.inputs), INFIX_OUT: set(RULE_PLAN.outputs)}
+    users = {INFIX_IN: set(RULE_PLAN.inputs), INFIX_OUT: set(RULE_PLAN.outputs), INFIX_LSB: set(RULE_PLAN.outputs)}
     fixed, derived = set(), set()
     for token in RULE_TOKENS:
         if not token.startswith(("probe_", "PROBE_")):
@@ -168,7 +168,8 @@ def test_every_generated_identifier_is_a_fixed_word_or_an_infix_and_a_users_name
             derived.add(word)
     # The rule is about something: both kinds occur, every name is used.
     assert {"estimate", "selftest", "N_INPUTS", "N_OUTPUTS", "SELFTEST", "H", "verify_batch"} <= fixed
-    assert derived == {INFIX_IN + n for n in RULE_PLAN.inputs} | {INFIX_OUT + n for n in RULE_PLAN.outputs}
+    assert derived == ({INFIX_IN + n for n in RULE_PLAN.inputs} | {INFIX_OUT + n for n in RULE_PLAN.outputs}
+                       | {INFIX_LSB + n for n in RULE_PLAN.outputs})
 
 
 def test_the_old_box_table_name_would_break_the_rule():

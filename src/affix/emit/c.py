@@ -8,14 +8,17 @@ from affix.emit.context import build_context, dual_mac_applies, split_applies
 from affix.emit.templates import render
 from affix.errors import UsageError
 from affix.float32_arithmetic import FLOAT32_MAX, magnitude_bound
+from affix.interface import describe
 from affix.targets import get_target
 
 
-def render_c(plan, name: str, *, arith: str = "int", style: str = "table") -> dict[str, str]:
-    """``{filename: text}`` of the C files for ``plan`` emitted as ``name``."""
+def render_c(plan, name: str, *, arith: str = "int", style: str = "table", interface=None) -> dict[str, str]:
+    """``{filename: text}`` of the C files for ``plan`` emitted as ``name``;
+    ``interface`` defaults to that of the C files alone."""
     if arith == "float32":
         _check_float32_range(plan)
-    context = build_context(plan, name, arith=arith, style=style)
+    interface = interface or describe(plan, name, languages=("c",), arith=arith)
+    context = build_context(plan, name, interface, arith=arith, style=style)
     return {
         f"{name}.h": render("c/header.h.jinja", **context),
         f"{name}.c": render("c/source.c.jinja", **context),

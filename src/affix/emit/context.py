@@ -14,7 +14,7 @@ import numpy as np
 from affix.arithmetic import (
     INPUT_CTYPES, OUTPUT_CTYPES, box_bounds, ctype_bits, input_reach, output_range, rounding_constant,
 )
-from affix.emit.names import INFIX_IN, INFIX_OUT
+from affix.emit.names import INFIX_IN, INFIX_LSB, INFIX_OUT
 from affix.float32_arithmetic import Float32Estimator, error_bound
 from affix.targets import get_target
 
@@ -33,8 +33,9 @@ _PRODUCT_LIMIT = 2**31  # a product whose magnitude stays below this is formed i
 _HALF = (-(2**15), 2**15 - 1)  # what one half of a dual 16-bit multiply-accumulate operand holds
 
 
-def build_context(plan, name: str, *, arith: str = "int", style: str = "table") -> dict:
-    """The template context for ``plan`` emitted as ``name``.
+def build_context(plan, name: str, interface, *, arith: str = "int", style: str = "table") -> dict:
+    """The template context for ``plan`` emitted as ``name`` with ``interface``
+    (:class:`affix.interface.Interface`: its fingerprint and units reach the files).
 
     ``plan`` has passed its schema (``Plan.validate``, or read from a file):
     its text fields, which reach comments, hold no comment delimiters or line
@@ -62,6 +63,7 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
             # Bits of the product this input's terms are formed in (see _product_bits).
             "product_bits": max(_product_bits(plan, target, row[j], reach[j]) for row in plan.coefficients),
             "lsb": None if plan.input_lsb is None else plan.input_lsb[j],
+            "unit": interface.inputs[j]["unit"],
         }
         for j, (column, (lo, hi)) in enumerate(zip(plan.inputs, plan.input_ranges))
     ]
@@ -104,6 +106,8 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
                 "saturate_lo": q_min < out_lo,
                 "saturate_hi": q_max > out_hi,
                 "lsb": plan.output_lsb[i],
+                "lsb_literal": repr(float(plan.output_lsb[i])),  # shortest digits that read back exactly
+                "unit": interface.outputs[i]["unit"],
                 "acc_lsb": plan.output_lsb[i] / 2**shift,
                 "frac_bits": frac_bits,  # Qm.n where the lsb is 2**-n, else None
                 "float32_error_bound": float(float32_bounds[i]),
@@ -116,6 +120,7 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         "name": name,
         "infix_in": INFIX_IN,  # NAME_<infix><user's name>: DEVELOPERS.md, "Generated identifiers"
         "infix_out": INFIX_OUT,
+        "infix_lsb": INFIX_LSB,
         "function": f"{name}_estimate",
         "arith": arith,
         "style": style,
@@ -148,6 +153,7 @@ def build_context(plan, name: str, *, arith: str = "int", style: str = "table") 
         "plan_sha256": plan.sha256,
         "tool_version": plan.tool_version,
         "caution": list(CAUTION),
+        "interface_id": interface.id,
         "check_vectors": check_vectors(plan, in_ctype, arith),
     }
 

@@ -31,16 +31,19 @@ VIPER_WORD_BITS = 32
 MODULE_TEMPLATE = "micropython/module.py.jinja"
 
 
-def render_micropython(plan, name: str) -> dict[str, str]:
+def render_micropython(plan, name: str, interface=None) -> dict[str, str]:
     """The emitted files: ``{"NAME.py": text}``.  Names are checked here too:
-    they reach the file as identifiers and in comments."""
+    they reach the file as identifiers and in comments.  ``interface``
+    defaults to that of the module alone."""
     check_names(name, plan.inputs, plan.outputs)
-    return {f"{name}.py": render(MODULE_TEMPLATE, **micropython_context(plan, name))}
+    return {f"{name}.py": render(MODULE_TEMPLATE, **micropython_context(plan, name, interface))}
 
 
-def micropython_context(plan, name: str) -> dict:
+def micropython_context(plan, name: str, interface=None) -> dict:
     """The shared template context plus the MicroPython facts of this module."""
-    context = build_context(plan, name)
+    from affix.interface import describe  # it asks this module which variants exist
+
+    context = build_context(plan, name, interface or describe(plan, name, languages=("micropython",)))
     for output in context["outputs"]:
         output["viper_shift"] = min(output["shift"], _VIPER_MAX_SHIFT)
     estimator = plan.integer_estimator()

@@ -77,11 +77,12 @@ INTERNAL_LENGTH = 63
 # estimator name, '_', then a fixed word or a category infix and a user's
 # name.  The infixes are prefix-free among themselves and no fixed word starts
 # with one, so no choice of names makes two identifiers equal; the templates
-# take them from the context (infix_in, infix_out) and tests/test_names.py
+# take them from the context (infix_in, infix_out, infix_lsb) and tests/test_names.py
 # checks the rule on the rendered templates.
 INFIX_IN = "in_"  # NAME_in_<input>: an input's position in y[]
 INFIX_OUT = "out_"  # NAME_out_<output>: an output's position in x[]
-INFIXES = (INFIX_IN, INFIX_OUT)
+INFIX_LSB = "lsb_"  # NAME_lsb_<output> (a macro, so NAME upper-case): an output's scale
+INFIXES = (INFIX_IN, INFIX_OUT, INFIX_LSB)
 
 # The longest suffix the C target appends to the estimator name for an
 # external symbol ("NAME_selftest"), and the longest before a user's name.
@@ -133,6 +134,23 @@ def names_could_clash(name: str, other: str) -> bool:
     """
     a, b = name.lower() + "_", other.lower() + "_"
     return name != other and (a.startswith(b) or b.startswith(a))
+
+
+# A unit reaches comments of both languages and the interface file: plain
+# ASCII that can neither end a C comment ('*/'), open one, nor break a line.
+_UNIT = re.compile(r"^[A-Za-z0-9 %/.^()_+*-]{1,24}$")
+
+
+def check_units(units, names) -> dict:
+    """``units`` ({name: unit text}) if every key is one of ``names`` and every text is a safe unit."""
+    for name, unit in units.items():
+        if name not in names:
+            raise UsageError(f"{_shown(name)} names no input or output (they are {', '.join(names)})", "units")
+        if not isinstance(unit, str) or not _UNIT.match(unit) or "*/" in unit or "/*" in unit or unit.strip() != unit:
+            raise UsageError(
+                f"the unit of {_shown(name)}, {_shown(unit)}, is not one affix writes into code comments: up to "
+                "24 ASCII letters, digits, spaces and % / . ^ ( ) _ + * - (no '/*' or '*/')", "units")
+    return dict(units)
 
 
 def _reserved_by(name: str) -> str | None:

@@ -13,13 +13,18 @@ from affix import files
 from affix.arithmetic import ROUNDING_RULES
 from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, STYLES
 from affix.emit.manifest import estimator_name, generated_files, manifest_name, manifests_in, sha256_of
-from affix.emit.names import check_names, names_could_clash
+from affix.emit.names import check_names, check_units, names_could_clash
 from affix.errors import UsageError
+from affix.interface import describe
 
 
-def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str = "table") -> dict:
+def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str = "table", units=None) -> dict:
     """Write the emitted files for ``lang`` ("c", "micropython" or "all") and
     the manifest into ``out_dir``; return the manifest.
+
+    ``units`` maps input and output names to unit texts for the comments and
+    the interface (:func:`affix.interface.describe`), whose fingerprint every
+    file carries and the manifest holds in full.
 
     Everything is rendered and checked before the first file is written, and
     the files land together (:class:`affix.files.FileSet`): an error leaves
@@ -36,21 +41,24 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
     check_names(name, plan.inputs, plan.outputs)
     _check_neighbours(name, Path(out_dir))
     plan.validate()
+    units = check_units(units or {}, plan.inputs + plan.outputs)
+    interface = describe(plan, name, languages=languages, arith=arith, units=units)
 
     rendered: dict[str, dict[str, str]] = {}
     notes: list[str] = []
     if "c" in languages:
         from affix.emit.c import notes as c_notes, render_c
 
-        rendered["c"] = render_c(plan, name, arith=arith, style=style)
+        rendered["c"] = render_c(plan, name, arith=arith, style=style, interface=interface)
         notes += c_notes(plan, arith=arith, style=style)
     if "micropython" in languages:
         from affix.emit.micropython import notes as micropython_notes, render_micropython
 
-        rendered["micropython"] = render_micropython(plan, name)
+        rendered["micropython"] = render_micropython(plan, name, interface)
         notes += micropython_notes(plan)
 
     manifest = manifest_for(plan, name, arith, style, rendered, notes)
+    manifest["interface"] = interface.to_dict()
     with files.FileSet(out_dir, parameter="out_dir", earlier=lambda folder: emitted_before(folder, name)) as staged:
         for sources in rendered.values():
             for filename, text in sources.items():
