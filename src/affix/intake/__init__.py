@@ -14,6 +14,7 @@ counted from 1, as those have no lines.
 """
 from __future__ import annotations
 
+import itertools
 from pathlib import Path
 
 import numpy as np
@@ -22,7 +23,7 @@ from affix.errors import DataError, UsageError
 from affix.intake import array_format, csv_format
 from affix.intake.stream import ChunkStream
 
-__all__ = ["ChunkStream", "column_names", "from_array", "partition", "read_chunks", "splittable"]
+__all__ = ["ChunkStream", "column_names", "from_array", "partition", "read_chunks", "read_files", "splittable"]
 
 
 def column_names(path) -> list[str]:
@@ -60,6 +61,13 @@ def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: b
     first_row = csv_format.rows_before(path, part[0])
     raw = csv_format.raw_chunks(path, columns, chunk_rows, byte_range=part, rows_skipped=first_row)
     return ChunkStream(path, columns, raw, drop_invalid, first_row=first_row, digest=False, first_line=first_line)
+
+
+def read_files(paths, columns, *, drop_invalid: bool = False):
+    """The chosen columns of several files, one after the other, as one iterable of float64 chunks.
+
+    Every file and its column names are checked here, before any row is read."""
+    return itertools.chain.from_iterable([read_chunks(path, columns, drop_invalid=drop_invalid) for path in paths])
 
 
 def splittable(path) -> bool:

@@ -12,6 +12,7 @@
 """
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from typing import Callable
 
@@ -82,18 +83,19 @@ def corners(lo: np.ndarray, hi: np.ndarray, rng) -> np.ndarray:
     return np.vstack(rows).astype(np.int64)
 
 
-def calibration_vectors(path, inputs, input_ctype: str, input_lsb=None) -> VectorSet:
-    """The calibration rows as the integers the code would receive.
+def calibration_vectors(paths, inputs, input_ctype: str, input_lsb=None) -> VectorSet:
+    """The calibration rows of one file or a list of files as the integers the code would receive.
 
     Each value is divided by its input's lsb where the plan records one (the
     model was fitted on physical inputs), rounded to the nearest integer
     (halves to even) and limited to the input type; rows are kept in file
     order, out-of-box rows included (they check the clamping).
     """
-    from affix.intake import read_chunks
+    from affix.intake import read_files
 
     t_lo, t_hi = INPUT_CTYPES[input_ctype]
     scale = np.array([1.0 if v is None else float(v) for v in (input_lsb or [None] * len(inputs))])
-    chunks = [np.clip(np.rint(chunk / scale), t_lo, t_hi) for chunk in read_chunks(path, list(inputs))]
+    paths = [paths] if isinstance(paths, (str, os.PathLike)) else paths
+    chunks = [np.clip(np.rint(chunk / scale), t_lo, t_hi) for chunk in read_files(paths, list(inputs))]
     rows = np.vstack(chunks) if chunks else np.empty((0, len(inputs)))
     return VectorSet.of("calibration", rows)

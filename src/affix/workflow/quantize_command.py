@@ -8,8 +8,10 @@ from __future__ import annotations
 
 import argparse
 import json
+import sys
 
 from affix.arithmetic import ACC_BITS, COEF_BITS, INPUT_CTYPES, OUTPUT_CTYPES, ROUNDING_RULES, ROUNDINGS
+from affix.coverage import coverage, summary_line
 from affix.errors import UsageError
 from affix.model import Model
 from affix.targets import DEFAULT_TARGET, TARGETS
@@ -40,6 +42,18 @@ def register(sub):
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     parser.add_argument("model", help="model file written by 'affix fit'")
+    add_plan_options(parser)
+    parser.add_argument("--data", action="append", metavar="CALIB_FILE",
+                        help="calibration rows to measure the integer reference on (repeatable)")
+    parser.add_argument("--drop-invalid", action="store_true",
+                        help="leave out calibration rows holding NaN, infinite or empty values")
+    parser.add_argument("--out", required=True, metavar="PLAN_JSON", help="where to write the plan")
+    parser.add_argument("--json", action="store_true", help="print a JSON summary instead of the table")
+    parser.set_defaults(run=run, reads=("model", "data"), writes={"out": "file"})
+
+
+def add_plan_options(parser) -> None:
+    """The options that choose the fixed-point plan (shared with 'affix init', which writes them to the project)."""
     parser.add_argument("--range", action="append", default=[], metavar="[NAME=]LO:HI",
                         help="input range in integer counts; without NAME for every input (repeatable)")
     parser.add_argument("--coef-bits", type=int, choices=COEF_BITS, help="coefficient width (default: searched)")
@@ -62,44 +76,45 @@ def register(sub):
                         + " (default nearest)")
     parser.add_argument("--plain-coefficients", action="store_true",
                         help="round each coefficient on its own instead of the error-feedback search")
-    parser.add_argument("--data", metavar="CALIB_FILE", help="calibration rows to measure the integer reference on")
-    parser.add_argument("--drop-invalid", action="store_true",
-                        help="leave out calibration rows holding NaN, infinite or empty values")
-    parser.add_argument("--out", required=True, metavar="PLAN_JSON", help="where to write the plan")
-    parser.add_argument("--json", action="store_true", help="print a JSON summary instead of the table")
-    parser.set_defaults(run=run, reads=("model", "data"), writes={"out": "file"})
+
+
+def plan_options(args) -> dict:
+    """The plan options as keyword arguments of plan_fixed_point; the input ranges as {name or None: (lo, hi)}."""
+    return {
+        "input_ranges": _named(args.range, "range", _range_value),
+        "coef_bits": args.coef_bits,
+        "acc_bits": args.acc_bits,
+        "output_ctype": args.output_type,
+        "output_lsb": _named(args.lsb, "lsb", _number) or None,
+        "input_lsb": _named(args.input_lsb, "input_lsb", _number) or None,
+        "budget": _named([p for b in args.budget for p in b.split(",")], "budget", _number) or None,
+        "budget_rms": None if args.budget_rms is None else _percent(args.budget_rms),
+        "rounding": args.rounding,
+        "target": args.target,
+        "input_ctype": args.input_type,
+        "search": not args.plain_coefficients,
+    }
 
 
 def run(args) -> int:
     from affix.quantize import plan_fixed_point  # loaded by this command only: start-up stays short
 
     model = Model.load(args.model)
-    ranges = _named(args.range, "range", _range_value)
-    if not ranges:
+    options = plan_options(args)
+    if not options["input_ranges"]:
         raise UsageError("give the input range in counts, e.g. --range 0:4095", "range")
     calibration = None
     if args.data:
-        from affix.intake import read_chunks
+        from affix.intake import read_files
 
-        calibration = read_chunks(args.data, list(model.inputs), drop_invalid=args.drop_invalid)
-    plan = plan_fixed_point(
-        model,
-        ranges,
-        coef_bits=args.coef_bits,
-        acc_bits=args.acc_bits,
-        output_ctype=args.output_type,
-        output_lsb=_named(args.lsb, "lsb", _number) or None,
-        input_lsb=_named(args.input_lsb, "input_lsb", _number) or None,
-        budget=_named([p for b in args.budget for p in b.split(",")], "budget", _number) or None,
-        budget_rms=None if args.budget_rms is None else _percent(args.budget_rms),
-        rounding=args.rounding,
-        target=args.target,
-        input_ctype=args.input_type,
-        calibration=calibration,
-        search=not args.plain_coefficients,
-    )
-    report = json.dumps(summary(plan), indent=2) if args.json else table(plan)
+        calibration = read_files(args.data, list(model.inputs), drop_invalid=args.drop_invalid)
+    plan = plan_fixed_point(model, **options, calibration=calibration)
+    covered = coverage(model, plan.input_ranges, plan.input_lsb)
+    report = json.dumps(summary(plan, covered), indent=2) if args.json else table(plan, covered)
     plan.save(args.out)
+    for column in covered or []:
+        if column.extrapolated:
+            print(f"affix: warning: {column.warning()}", file=sys.stderr)
     print(report)
     return 0
 
@@ -141,8 +156,8 @@ def _percent(text):
     return _number(text.strip().removesuffix("%"), "budget_rms")
 
 
-def summary(plan) -> dict:
-    """The plan's decisions and figures, without the coefficient tables."""
+def summary(plan, covered=None) -> dict:
+    """The plan's decisions and figures, without the coefficient tables, and the data's coverage of the box."""
     keys = (
         "model_sha256 target input_ctype outputs coef_bits acc_bits output_ctype rounding shifts output_lsb float_rms "
         "predicted_rms_deviation predicted_total_rms worst_case_deviation deviation_parts "
@@ -159,7 +174,7 @@ def _predicted_cost(plan) -> dict | None:
     return None if cost is None else {"per_evaluation": round(cost), "unit": cost_unit(plan.target)}
 
 
-def table(plan) -> str:
+def table(plan, covered=None) -> str:
     """The accuracy table: one line per output, then the measurements."""
     budget = plan.budget
     calibration = plan.measured.get("calibration")
@@ -205,6 +220,8 @@ def table(plan) -> str:
         corner = f", corners {_g(corners['max_deviation'][i])}" if corners else ""
         lines.append(f"    {name}: {_g(random['predicted_rms_deviation'][i])} / {_g(random['rms_deviation'][i])}, "
                      f"{_g(random['max_deviation'][i])}{corner} (bound {_g(plan.worst_case_deviation[i])})")
+    if covered:
+        lines.append(summary_line(covered))
     return "\n".join(lines)
 
 

@@ -19,8 +19,8 @@ def register(sub):
     parser.add_argument("target", metavar="PATH", help="emit folder, or one NAME.manifest.json in it")
     parser.add_argument("--vectors", type=int, default=10**6, metavar="N",
                         help="random vectors inside the box (default 1000000)")
-    parser.add_argument("--data", metavar="CALIB_FILE",
-                        help="calibration file whose rows are checked too: values are divided by the input lsb "
+    parser.add_argument("--data", action="append", metavar="CALIB_FILE",
+                        help="calibration file whose rows are checked too (repeatable): values are divided by the input lsb "
                         "where the plan records one, rounded to the nearest integer (halves to even) and "
                         "limited to the input type")
     parser.add_argument("--seed", type=int, default=0, help="seed of the random vectors (default 0)")
