@@ -102,6 +102,24 @@ def write_text(path, text: str, *, parameter: str = "path") -> None:
         raise
 
 
+def write_new_text(path, text: str, *, parameter: str = "path") -> None:
+    """Write a file that must not exist yet: FileExistsError if it does, even if
+    it appears while this runs (a hard link never replaces its target)."""
+    path = check_file_target(path, parameter)
+    try:
+        temporary = _new_file(path.parent, f".{path.name}.", lambda handle: handle.write(text))
+    except OSError as exc:
+        raise WriteError(f"cannot write ({exc.strerror})", path) from None
+    try:
+        os.link(temporary, path)
+    except FileExistsError:
+        raise
+    except OSError as exc:
+        raise WriteError(f"cannot write ({exc.strerror})", path) from None
+    finally:
+        os.unlink(temporary)
+
+
 def write_json(path, data, *, parameter: str = "path") -> None:
     write_text(path, json_text(data), parameter=parameter)
 
@@ -263,6 +281,15 @@ def _unique_keys(pairs) -> dict:
             raise ValueError(f"key '{key}' appears twice in one object")
         data[key] = value
     return data
+
+
+def file_sha256(path) -> str:
+    """SHA-256 of a file's bytes."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
 
 
 def content_sha256(data) -> str:
