@@ -105,7 +105,12 @@ class Interface:
 
     def changes(self, new: "Interface") -> list[str]:
         """What differs from ``self`` to ``new``, one line each ("outputs[Fx].lsb: 0.0078125 -> 0.015625")."""
-        return _differences(_keyed(self.content()), _keyed(new.content()), "")
+        return interface_changes(self.content(), new.content())
+
+
+def interface_changes(old: dict, new: dict) -> list[str]:
+    """The differences of two interfaces in file form (ports keyed by name), one line each."""
+    return _differences(_keyed(old), _keyed(new), "")
 
 
 def describe(plan, name=None, *, languages=(), arith: str = "int", units=None, coefficients: str = "compiled") -> Interface:
