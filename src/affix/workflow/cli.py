@@ -29,6 +29,9 @@ COMMAND_MODULES = (
     "affix.workflow.emit_command",
     "affix.workflow.verify_command",
     "affix.workflow.report_command",
+    "affix.workflow.init_command",
+    "affix.workflow.build_command",
+    "affix.workflow.diff_command",
     "affix.workflow.demo_command",
 )
 

@@ -18,14 +18,20 @@ def register(sub):
         "Files are NAME.h/NAME.c (C), NAME.py (MicroPython) and NAME.manifest.json.",
     )
     parser.add_argument("plan", help="plan file written by 'affix quantize'")
-    parser.add_argument("--lang", required=True, choices=LANGUAGES + ("all",), help="target language")
+    add_emit_options(parser, lang_required=True)
+    parser.add_argument("--name", required=True, help="estimator name: prefix of every emitted symbol and file")
+    parser.add_argument("--out", required=True, help="output folder (created if missing)")
+    parser.set_defaults(run=run, reads=("plan",), writes={"out": "folder"})
+
+
+def add_emit_options(parser, *, lang_required: bool) -> None:
+    """The options that shape the emitted code (shared with 'affix init', which writes them to the project)."""
+    parser.add_argument("--lang", required=lang_required, choices=LANGUAGES + ("all",),
+                        help="target language" + ("" if lang_required else " (default all)"))
     parser.add_argument("--arith", default="int", choices=ARITHS,
                         help="int: the plan's fixed-point arithmetic (default); float32: single-precision C")
     parser.add_argument("--style", default="table", choices=STYLES,
                         help="C layout: constant tables and loops (default) or straight-line code with immediates")
-    parser.add_argument("--name", required=True, help="estimator name: prefix of every emitted symbol and file")
-    parser.add_argument("--out", required=True, help="output folder (created if missing)")
-    parser.set_defaults(run=run, reads=("plan",), writes={"out": "folder"})
 
 
 def run(args) -> int:

@@ -25,11 +25,16 @@ def register(sub):
     parser.add_argument("--inputs", required=True, help="comma-separated input columns (the raw readings y)")
     parser.add_argument("--outputs", required=True, help="comma-separated output columns (the quantities x)")
     parser.add_argument("--out", required=True, help="model file to write (JSON)")
+    add_fit_options(parser)
+    parser.add_argument("--json", action="store_true", help="print the summary as JSON instead of a table")
+    parser.set_defaults(run=run, reads=("data",), writes={"out": "file"})
+
+
+def add_fit_options(parser) -> None:
+    """The options that shape the fit (shared with 'affix init', which writes them to the project)."""
     parser.add_argument("--ridge", type=float, default=0.0, help="relative ridge: adds RIDGE*var(y_j) to each input's variance (default 0)")
     parser.add_argument("--folds", type=int, default=5, help="k for k-fold cross-validation, 0 to skip (default 5)")
     parser.add_argument("--drop-invalid", action="store_true", help="leave out rows holding NaN, infinite or empty values")
-    parser.add_argument("--json", action="store_true", help="print the summary as JSON instead of a table")
-    parser.set_defaults(run=run, reads=("data",), writes={"out": "file"})
 
 
 def run(args) -> int:
@@ -38,8 +43,8 @@ def run(args) -> int:
         warnings.simplefilter("always")
         model = affix.fit(
             args.data if len(args.data) > 1 else args.data[0],
-            _names(args.inputs, "inputs"),
-            _names(args.outputs, "outputs"),
+            column_names(args.inputs, "inputs"),
+            column_names(args.outputs, "outputs"),
             ridge=args.ridge,
             folds=args.folds,
             drop_invalid=args.drop_invalid,
@@ -105,7 +110,7 @@ def format_table(summary) -> str:
     return "\n".join(lines)
 
 
-def _names(text: str, parameter: str) -> list[str]:
+def column_names(text: str, parameter: str) -> list[str]:
     names = [name.strip() for name in text.split(",")]
     if not all(names):
         raise UsageError(f"empty column name in '{text}'", parameter)

@@ -1,0 +1,288 @@
+"""affix build: a project file in, one verified build folder out, all or nothing.
+
+The steps are the stages themselves, in order: fit -> quantize -> emit ->
+verify, then the diff against the previous build.  Everything is written
+into a fresh folder beside the output folder, which replaces the previous
+build only when every step has passed (:func:`affix.files.staged_folder`):
+a failed build leaves the last good one untouched.  The folder holds no
+timestamps and no absolute paths, and every file is written in a fixed
+order from fixed inputs, so two builds of the same inputs are identical byte
+for byte.
+
+The first successful build pins the firmware interface in
+``NAME.interface.json`` beside the project file.  Later builds plan within
+it: widths, output type and output lsbs come from the pin wherever the
+project leaves them open, and a build that would change the interface stops
+with exit status 5 unless ``repin`` accepts the change.
+
+Before anything is replaced, every file of the previous build is checked
+against the SHA-256 that build recorded: a file edited by hand (or added)
+since is never silently overwritten.
+"""
+from __future__ import annotations
+
+import os
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from affix import files
+from affix._version import __version__
+from affix.coverage import coverage, summary_line
+from affix.errors import AffixError, BudgetError, DataError, FileFormatError, InterfaceError, NoConfigurationError, UsageError
+from affix.intake.digest import combined
+from affix.interface import Interface
+
+BUILD_FORMAT = "affix.build/1"
+RECORD = "build.json"
+
+
+@dataclass
+class BuildResult:
+    """What a build did.  ``pin`` is "pinned" (first build), "kept" or "repinned"."""
+
+    out: Path
+    steps: list[dict] = field(default_factory=list)  # {"step", "status"} in order
+    interface: Interface | None = None
+    pin: str = ""
+    interface_changes: list[str] = field(default_factory=list)
+    coverage: list = field(default_factory=list)  # affix.coverage.InputCoverage per input
+    record: dict | None = None  # build.json
+
+
+def build_project(project, *, out=None, repin: bool = False, force: bool = False,
+                  progress=lambda line: None, warn=lambda line: None) -> BuildResult:
+    """Run every step for ``project`` into ``out`` (default: the project's build folder).
+
+    ``progress`` receives one line per finished step, ``warn`` each warning.
+    ``force`` replaces a previous build even where files were edited by hand.
+    """
+    out = Path(project.out if out is None else out)
+    previous = previous_build(out, force=force)
+    pin_path = _pin_path(project, previous)
+    pin = Interface.load(pin_path) if pin_path else None
+    result = BuildResult(out)
+    with files.staged_folder(out) as staging:
+        model = _fit(project, staging, result, progress, warn)
+        plan = _quantize(project, model, None if repin else pin, pin_path, staging, result, progress)
+        interface = _emit(project, plan, staging, result, progress)
+        result.interface_changes = pin.changes(interface) if pin else []
+        if result.interface_changes and not repin:
+            raise InterfaceError(
+                f"the build would change the interface pinned in {pin_path} ({pin.id} -> {interface.id}): "
+                + "; ".join(result.interface_changes)
+                + ". Nothing was written; 'affix build --repin' accepts the change (and the firmware must follow it)")
+        _verify(project, staging, result, progress)
+        if previous is not None:
+            _diff_previous(out, staging, result, progress, warn)
+        # The report (affix report, issue 11) belongs here, the last step
+        # before the folder moves into place: it writes report.html from the
+        # files above and build.json's inputs.
+        result.record = _record(project, model, interface, out, staging, result)
+        files.write_json(staging / RECORD, result.record)
+    result.interface = interface
+    if pin is None or result.interface_changes or pin_path != project.interface_path:
+        interface.save(project.interface_path)
+        result.pin = "pinned" if pin is None else "repinned"
+        if pin_path is not None and pin_path != project.interface_path:
+            warn(f"{pin_path} belongs to the estimator's former name and is no longer used; delete it")
+    else:
+        result.pin = "kept"
+    return result
+
+
+def previous_build(out: Path, *, force: bool) -> dict | None:
+    """The previous build's record, after checking that none of its files changed since; None if there is none."""
+    if not out.exists():
+        return None
+    if not out.is_dir():
+        raise UsageError(f"'{out}' exists and is not a folder", "--out")
+    record_path = out / RECORD
+    if not record_path.is_file():
+        if force or not any(out.iterdir()):
+            return None
+        raise UsageError(f"'{out}' holds files but no {RECORD}, so 'affix build' did not make it; choose another "
+                         "--out, or pass --force to replace it")
+    try:
+        record = files.check_format(files.read_json(record_path, "build record"), BUILD_FORMAT, "build record",
+                                    record_path)
+        listed = record["files"]
+        if not isinstance(listed, dict):
+            raise FileFormatError("'files' must map file names to SHA-256 digests", record_path)
+    except (FileFormatError, KeyError):
+        if force:
+            return None
+        raise FileFormatError("not a readable build record; pass --force to replace the build", record_path) from None
+    if not force:
+        for name in _folder_files(out):
+            if name == RECORD:
+                continue
+            if name not in listed:
+                raise UsageError(f"{out / name} is not part of the last build (not in {RECORD}); move it elsewhere, "
+                                 "or pass --force to delete it with the old build")
+            if files.file_sha256(out / name) != listed[name]:
+                raise UsageError(f"{out / name} was edited by hand since the last build (its SHA-256 differs from "
+                                 f"{RECORD}); keep the change elsewhere, or pass --force to replace it")
+    return record
+
+
+def _pin_path(project, previous) -> Path | None:
+    """The pinned interface: the project's own, or the one the previous build's estimator name left behind."""
+    if project.interface_path.is_file():
+        return project.interface_path
+    former = previous.get("name") if previous else None
+    if isinstance(former, str) and former != project.name:
+        path = project.folder / f"{former}.interface.json"
+        if path.is_file():
+            return path
+    return None
+
+
+def _fit(project, staging, result, progress, warn):
+    import affix
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        model = affix.fit(list(project.data_files), [c.name for c in project.inputs],
+                          [c.name for c in project.outputs], ridge=project.ridge, folds=project.folds,
+                          drop_invalid=project.drop_invalid)
+    for warning in caught:
+        warn(str(warning.message))
+    if model.dropped_rows:
+        warn(f"left out {model.dropped_rows} row(s) holding NaN, infinite or empty values")
+    model.save(staging / "model.json")
+    condition = "inf" if model.condition_number is None else f"{model.condition_number:.3g}"
+    sources = ", ".join(project.relative(p) for p in project.data_files)
+    _step(result, progress, "fit", f"{model.n_samples} rows of {sources}: {model.n_inputs} inputs -> "
+                                   f"{model.n_outputs} outputs, condition number {condition}")
+    covered = coverage(model, [c.range for c in project.inputs], [c.lsb for c in project.inputs])
+    result.coverage = covered
+    progress(f"{'':10}{summary_line(covered)}")
+    for column in covered:
+        if column.extrapolated:
+            warn(column.warning())
+    return model
+
+
+def _quantize(project, model, pin, pin_path, staging, result, progress):
+    from affix.intake import read_files
+    from affix.quantize import plan_fixed_point
+
+    calibration = None
+    if project.calibration_rows:
+        calibration = read_files(project.data_files, list(model.inputs), drop_invalid=project.drop_invalid)
+    try:
+        plan = plan_fixed_point(model, **within(project.plan_options(), pin, model.outputs), calibration=calibration)
+    except (NoConfigurationError, BudgetError) as exc:
+        if pin is None or not exc.per_output:
+            raise
+        reasons = "; ".join(f"{name}: {why}" for name, why in exc.per_output.items())
+        raise InterfaceError(
+            f"the new calibration does not fit the interface pinned in {pin_path} ({pin.id}): {reasons}. Nothing "
+            "was written; 'affix build --repin' plans a new interface (and the firmware must follow it)") from None
+    plan.save(staging / "plan.json")
+    budget = plan.budget
+    verdict = "no budget"
+    if budget:
+        margins = [(m, n) for m, n in zip(budget["margins"], plan.outputs) if m is not None]
+        closest = min(margins) if margins else None
+        verdict = ("budget met" if budget["met"] else "budget NOT met (closest configuration)") + (
+            f", smallest margin {closest[1]} {closest[0]:+.3g}" if closest else "")
+    _step(result, progress, "quantize", f"{plan.coef_bits}-bit coefficients, {plan.acc_bits}-bit accumulator, "
+                                        f"{plan.output_ctype} outputs; {verdict}")
+    return plan
+
+
+def within(options: dict, pin: Interface | None, outputs) -> dict:
+    """``options`` with every choice the project leaves open taken from the pinned interface:
+    widths, output type and the lsb of each of ``outputs``.  What the project states stays,
+    so a deliberate change shows as an interface change rather than being overridden."""
+    if pin is None:
+        return options
+    options = dict(options)
+    if pin.fixed_point is not None:
+        for key in ("coef_bits", "acc_bits"):
+            if options[key] is None:
+                options[key] = pin.fixed_point[key]
+    if options["output_ctype"] is None and pin.output_ctype != "float":
+        options["output_ctype"] = pin.output_ctype
+    lsbs = dict(options["output_lsb"] or {})
+    for port in pin.outputs:
+        if port["lsb"] is not None and port["name"] in outputs:
+            lsbs.setdefault(port["name"], port["lsb"])
+    options["output_lsb"] = lsbs or None
+    return options
+
+
+def _emit(project, plan, staging, result, progress) -> Interface:
+    from affix.emit.writer import emit
+
+    lang = "all" if len(project.languages) > 1 else project.languages[0]
+    manifest = emit(plan, lang=lang, name=project.name, out_dir=staging, arith=project.arith, style=project.style,
+                    units=project.units)
+    written = [f for names in manifest["files"].values() for f in names] + [f"{project.name}.manifest.json"]
+    interface = Interface.from_dict(manifest["interface"])
+    _step(result, progress, "emit", f"{', '.join(written)}; interface {interface.id}")
+    return interface
+
+
+def _verify(project, staging, result, progress) -> None:
+    from affix.verify.check import verify
+
+    report = verify(staging, vectors=project.vectors, seed=project.seed,
+                    data=list(project.data_files) if project.calibration_rows else None)
+    files.write_json(staging / "verification.json", report.to_dict())
+    _step(result, progress, "verify", f"PASS, {report.mismatches} mismatches in {report.evaluations} evaluations")
+
+
+def _diff_previous(out, staging, result, progress, warn) -> None:
+    from affix import diff
+
+    try:
+        old = diff.Calibration.load(out, label="previous build")
+    except AffixError as exc:
+        warn(f"the previous build cannot be compared with this one ({exc.message}); no diff.json")
+        return
+    changes = diff.diff(old, diff.Calibration.load(staging, label="this build"))
+    files.write_text(staging / "diff.json", diff.to_json(changes))
+    largest = max(((abs(r), o, j) for o, e in changes["outputs"].items()
+                   for j, r in enumerate(e["gain_relative_change"]) if r is not None), default=None)
+    moved = "; gains unchanged" if largest is None or largest[0] == 0 else (
+        f"; largest relative gain change {largest[1]}/{changes['input_order'][largest[2]]} "
+        f"{changes['outputs'][largest[1]]['gain_relative_change'][largest[2]]:+.3%}")
+    verdict = "interface CHANGED" if changes["interface_changed"] else "interface unchanged"
+    _step(result, progress, "diff", f"against the previous build: {verdict}{moved} (diff.json)")
+
+
+def _record(project, model, interface, out, staging, result) -> dict:
+    data = [{"path": project.relative(p), "sha256": files.file_sha256(p)} for p in project.data_files]
+    if combined(d["sha256"] for d in data) != model.data_sha256:
+        raise DataError("a data file changed while the build read it; run the build again")
+    return {
+        "format": BUILD_FORMAT,
+        "tool_version": __version__,
+        "name": project.name,
+        "project": _relative(project.path, out),
+        "interface_file": _relative(project.interface_path, out),
+        "interface_id": interface.id,
+        "data": data,
+        "target": None,
+        "target_figures": None,
+        "coverage": [c.to_dict() for c in result.coverage],
+        "steps": list(result.steps),
+        "files": {name: files.file_sha256(staging / name) for name in _folder_files(staging) if name != RECORD},
+    }
+
+
+def _step(result, progress, step: str, summary: str) -> None:
+    result.steps.append({"step": step, "status": "ok"})
+    progress(f"{step:<10}{summary}")
+
+
+def _relative(path, start) -> str:
+    return Path(os.path.relpath(path, start)).as_posix()
+
+
+def _folder_files(folder: Path) -> list[str]:
+    """Every file under ``folder``, as '/'-separated paths relative to it, sorted."""
+    return sorted(p.relative_to(folder).as_posix() for p in folder.rglob("*") if p.is_file())

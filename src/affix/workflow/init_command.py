@@ -1,0 +1,85 @@
+"""affix init: write a starter project file from the data and the options the other commands take."""
+from __future__ import annotations
+
+import os
+import re
+from pathlib import Path
+
+from affix.errors import UsageError
+from affix.project.file import data_files
+from affix.workflow.emit_command import add_emit_options
+from affix.workflow.fit_command import add_fit_options, column_names
+from affix.workflow.quantize_command import add_plan_options, plan_options
+
+
+def register(sub):
+    parser = sub.add_parser(
+        "init",
+        help="write a starter project file (affix.toml) for 'affix build'",
+        description="Write affix.toml holding the data, the columns and every option given, with each "
+        "input's smallest and largest value in the data beside its range. An existing file is never replaced.",
+    )
+    parser.add_argument("data", nargs="+", metavar="DATA",
+                        help="calibration data file(s) or quoted glob patterns, as for 'affix fit'")
+    parser.add_argument("--inputs", required=True, help="comma-separated input columns (the raw readings y)")
+    parser.add_argument("--outputs", required=True, help="comma-separated output columns (the quantities x)")
+    parser.add_argument("--name", help="estimator name (default: the first data file's name)")
+    parser.add_argument("--project", default="affix.toml", metavar="PATH",
+                        help="the project file to write (default ./affix.toml)")
+    add_fit_options(parser)
+    add_plan_options(parser)
+    add_emit_options(parser, lang_required=False)
+    parser.add_argument("--vectors", type=int, default=10**6, metavar="N",
+                        help="random vectors the build verifies (default 1000000)")
+    parser.set_defaults(run=run)
+
+
+def run(args) -> int:
+    from affix.emit import LANGUAGES
+    from affix.emit.names import check_names
+    from affix.project.starter import input_extremes, starter_text, write_starter
+
+    project = Path(args.project)
+    if project.exists():
+        raise UsageError(f"'{project}' exists; affix init never overwrites a project file", "--project")
+    if not project.parent.is_dir():
+        raise UsageError(f"folder '{project.parent}' does not exist", "--project")
+    inputs, outputs = column_names(args.inputs, "--inputs"), column_names(args.outputs, "--outputs")
+    found, written = _data(args.data, project.parent)
+    name = args.name or _default_name(found[0])
+    check_names(name, inputs, outputs)
+    text = starter_text(
+        project,
+        name=name,
+        files_written=written,
+        inputs=inputs,
+        outputs=outputs,
+        extremes=input_extremes(found, inputs, drop_invalid=args.drop_invalid),
+        options=plan_options(args),
+        ridge=args.ridge,
+        folds=args.folds,
+        drop_invalid=args.drop_invalid,
+        languages=list(LANGUAGES) if args.lang in (None, "all") else [args.lang],
+        arith=args.arith,
+        style=args.style,
+        vectors=args.vectors,
+    )
+    write_starter(project, text)
+    print(f"wrote {project}: review the ranges and budgets, then run 'affix build{_argument(project)}'")
+    return 0
+
+
+def _data(arguments, folder: Path):
+    """The files to read now, and the entries to write: each argument relative to the project's folder."""
+    written = [Path(os.path.relpath(argument, folder)).as_posix() for argument in arguments]
+    return data_files(folder, written), written
+
+
+def _default_name(path: Path) -> str:
+    """The data file's name as an identifier: other characters become '_'."""
+    name = re.sub(r"\W", "_", path.stem, flags=re.ASCII).strip("_")
+    return name if name[:1].isalpha() else f"estimator_{name}".rstrip("_")
+
+
+def _argument(project: Path) -> str:
+    return "" if project == Path("affix.toml") else f" {project}"
