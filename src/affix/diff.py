@@ -40,11 +40,12 @@ class Calibration:
     interface: dict  # Interface.content() of a build or plan; just the names of a model
 
     @classmethod
-    def load(cls, path, label=None) -> "Calibration":
+    def load(cls, path, label=None, parameter: str = "old") -> "Calibration":
+        """``path`` read as a calibration; ``parameter`` names the argument in errors."""
         path = Path(path)
         label = str(path) if label is None else label
         if path.is_dir():
-            return cls._build(path, label)
+            return cls._build(path, label, parameter)
         data = files.read_json(path, "model or plan")
         kind = data.get("format") if isinstance(data, dict) else None
         if kind == MODEL_FORMAT:
@@ -55,16 +56,16 @@ class Calibration:
 
             plan = Plan.from_dict(data, path)
             return cls("plan", label, None, plan, describe(plan).content())
-        raise UsageError(f"'{path}' is neither a model nor a plan file nor a build folder", "OLD/NEW")
+        raise UsageError(f"'{path}' is neither a model nor a plan file nor a build folder", parameter)
 
     @classmethod
-    def _build(cls, folder: Path, label: str) -> "Calibration":
+    def _build(cls, folder: Path, label: str, parameter: str) -> "Calibration":
         from affix.interface import Interface
         from affix.verify.check import find_manifest
 
         for needed in ("model.json", "plan.json"):
             if not (folder / needed).is_file():
-                raise UsageError(f"'{folder}' is not a build folder (no {needed}; see 'affix build')", "OLD/NEW")
+                raise UsageError(f"'{folder}' is not a build folder (no {needed}; see 'affix build')", parameter)
         manifest_path, manifest = find_manifest(folder)
         interface = Interface.from_dict(manifest.get("interface"), manifest_path)
         return cls("build", label, Model.load(folder / "model.json"), Plan.load(folder / "plan.json"),
@@ -74,7 +75,7 @@ class Calibration:
 def diff(old: Calibration, new: Calibration) -> dict:
     """The changes from ``old`` to ``new`` as plain data (what ``affix diff --json`` prints)."""
     if old.kind != new.kind:
-        raise UsageError(f"compare like with like: a {old.kind} against a {new.kind}", "OLD/NEW")
+        raise UsageError(f"compare like with like: a {old.kind} against a {new.kind}", "new")
     changes = interface_changes(old.interface, new.interface)
     old_inputs = list((old.model or old.plan).inputs)
     inputs = list((new.model or new.plan).inputs)

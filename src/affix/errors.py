@@ -63,6 +63,7 @@ class UsageError(AffixError):
     def __init__(self, message: str, parameter: str | None = None):
         super().__init__(f"{_mark(parameter)}: {message}" if parameter else message)
         self.parameter = parameter
+        self.reason = message  # without the parameter, for a caller that locates the fault otherwise
 
 
 class DataError(AffixError):

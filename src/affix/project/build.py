@@ -2,9 +2,9 @@
 
 The steps are the stages themselves, in order: fit -> quantize -> emit ->
 verify, then the diff against the previous build.  Everything is written
-into a fresh folder beside the output folder, which replaces the previous
-build only when every step has passed (:func:`affix.files.staged_folder`):
-a failed build leaves the last good one untouched.  The folder holds no
+into a staging folder first, which replaces the previous build only when
+every step has passed (a :class:`affix.files.FileSet`): a failed build
+leaves the last good one untouched.  The folder holds no
 timestamps and no absolute paths, and every file is written in a fixed
 order from fixed inputs, so two builds of the same inputs are identical byte
 for byte.
@@ -16,8 +16,8 @@ project leaves them open, and a build that would change the interface stops
 with exit status 5 unless ``repin`` accepts the change.
 
 Before anything is replaced, every file of the previous build is checked
-against the SHA-256 that build recorded: a file edited by hand (or added)
-since is never silently overwritten.
+against the SHA-256 that build recorded: a file edited by hand since is
+never silently overwritten, and a file the build did not write is left alone.
 """
 from __future__ import annotations
 
@@ -29,7 +29,8 @@ from pathlib import Path
 from affix import files
 from affix._version import __version__
 from affix.coverage import coverage, summary_line
-from affix.errors import AffixError, BudgetError, DataError, FileFormatError, InterfaceError, NoConfigurationError, UsageError
+from affix.errors import (AffixError, BudgetError, DataError, FileFormatError, InterfaceError, NoConfigurationError,
+                          UsageError, parameter)
 from affix.intake.digest import combined
 from affix.interface import Interface
 
@@ -62,24 +63,25 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
     pin_path = _pin_path(project, previous)
     pin = Interface.load(pin_path) if pin_path else None
     result = BuildResult(out)
-    with files.staged_folder(out) as staging:
-        model = _fit(project, staging, result, progress, warn)
-        plan = _quantize(project, model, None if repin else pin, pin_path, staging, result, progress)
-        interface = _emit(project, plan, staging, result, progress)
+    inputs = [project.path, *project.data_files, *([pin_path] if pin_path else [])]
+    with files.protected(inputs), files.FileSet(out, parameter="out", earlier=_earlier(previous, force)) as staged:
+        model = _fit(project, staged, result, progress, warn)
+        plan = _quantize(project, model, None if repin else pin, pin_path, staged, result, progress)
+        interface = _emit(project, plan, staged, result, progress)
         result.interface_changes = pin.changes(interface) if pin else []
         if result.interface_changes and not repin:
             raise InterfaceError(
                 f"the build would change the interface pinned in {pin_path} ({pin.id} -> {interface.id}): "
                 + "; ".join(result.interface_changes)
-                + ". Nothing was written; 'affix build --repin' accepts the change (and the firmware must follow it)")
-        _verify(project, staging, result, progress)
+                + f". Nothing was written; {parameter('repin')} accepts the change (and the firmware must follow it)")
+        _verify(project, staged, result, progress)
         if previous is not None:
-            _diff_previous(out, staging, result, progress, warn)
+            _diff_previous(out, staged, result, progress, warn)
         # The report (affix report, issue 11) belongs here, the last step
         # before the folder moves into place: it writes report.html from the
         # files above and build.json's inputs.
-        result.record = _record(project, model, interface, out, staging, result)
-        files.write_json(staging / RECORD, result.record)
+        result.record = _record(project, model, interface, out, staged, result)
+        staged.write_json(RECORD, result.record)
     result.interface = interface
     if pin is None or result.interface_changes or pin_path != project.interface_path:
         interface.save(project.interface_path)
@@ -93,16 +95,9 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
 
 def previous_build(out: Path, *, force: bool) -> dict | None:
     """The previous build's record, after checking that none of its files changed since; None if there is none."""
-    if not out.exists():
-        return None
-    if not out.is_dir():
-        raise UsageError(f"'{out}' exists and is not a folder", "--out")
     record_path = out / RECORD
     if not record_path.is_file():
-        if force or not any(out.iterdir()):
-            return None
-        raise UsageError(f"'{out}' holds files but no {RECORD}, so 'affix build' did not make it; choose another "
-                         "--out, or pass --force to replace it")
+        return None
     try:
         record = files.check_format(files.read_json(record_path, "build record"), BUILD_FORMAT, "build record",
                                     record_path)
@@ -112,18 +107,26 @@ def previous_build(out: Path, *, force: bool) -> dict | None:
     except (FileFormatError, KeyError):
         if force:
             return None
-        raise FileFormatError("not a readable build record; pass --force to replace the build", record_path) from None
+        raise FileFormatError(f"not a readable build record; {parameter('force')} replaces the build",
+                              record_path) from None
     if not force:
-        for name in _folder_files(out):
-            if name == RECORD:
-                continue
-            if name not in listed:
-                raise UsageError(f"{out / name} is not part of the last build (not in {RECORD}); move it elsewhere, "
-                                 "or pass --force to delete it with the old build")
-            if files.file_sha256(out / name) != listed[name]:
-                raise UsageError(f"{out / name} was edited by hand since the last build (its SHA-256 differs from "
-                                 f"{RECORD}); keep the change elsewhere, or pass --force to replace it")
+        for name, sha256 in sorted(listed.items()):
+            path = out / name
+            if path.is_file() and files.file_sha256(path) != sha256:
+                raise UsageError(f"{path} was edited by hand since the last build (its SHA-256 differs from "
+                                 f"{RECORD}); keep the change elsewhere, or replace it with {parameter('force')}")
     return record
+
+
+def _earlier(previous: dict | None, force: bool):
+    """What the build may replace or remove in its folder (affix.files.FileSet): what the last
+    build wrote, or with ``force`` whatever is there."""
+    def earlier(folder: Path) -> set[str]:
+        if force:
+            return set(os.listdir(folder))
+        return set() if previous is None else {RECORD, *previous["files"]}
+
+    return earlier
 
 
 def _pin_path(project, previous) -> Path | None:
@@ -138,7 +141,7 @@ def _pin_path(project, previous) -> Path | None:
     return None
 
 
-def _fit(project, staging, result, progress, warn):
+def _fit(project, staged, result, progress, warn):
     import affix
 
     with warnings.catch_warnings(record=True) as caught:
@@ -150,7 +153,7 @@ def _fit(project, staging, result, progress, warn):
         warn(str(warning.message))
     if model.dropped_rows:
         warn(f"left out {model.dropped_rows} row(s) holding NaN, infinite or empty values")
-    model.save(staging / "model.json")
+    staged.write_json("model.json", model.to_dict())
     condition = "inf" if model.condition_number is None else f"{model.condition_number:.3g}"
     sources = ", ".join(project.relative(p) for p in project.data_files)
     _step(result, progress, "fit", f"{model.n_samples} rows of {sources}: {model.n_inputs} inputs -> "
@@ -164,7 +167,7 @@ def _fit(project, staging, result, progress, warn):
     return model
 
 
-def _quantize(project, model, pin, pin_path, staging, result, progress):
+def _quantize(project, model, pin, pin_path, staged, result, progress):
     from affix.intake import read_files
     from affix.quantize import plan_fixed_point
 
@@ -179,8 +182,8 @@ def _quantize(project, model, pin, pin_path, staging, result, progress):
         reasons = "; ".join(f"{name}: {why}" for name, why in exc.per_output.items())
         raise InterfaceError(
             f"the new calibration does not fit the interface pinned in {pin_path} ({pin.id}): {reasons}. Nothing "
-            "was written; 'affix build --repin' plans a new interface (and the firmware must follow it)") from None
-    plan.save(staging / "plan.json")
+            f"was written; {parameter('repin')} plans a new interface (and the firmware must follow it)") from None
+    staged.write_json("plan.json", plan.to_dict())
     budget = plan.budget
     verdict = "no budget"
     if budget:
@@ -214,28 +217,30 @@ def within(options: dict, pin: Interface | None, outputs) -> dict:
     return options
 
 
-def _emit(project, plan, staging, result, progress) -> Interface:
-    from affix.emit.writer import emit
+def _emit(project, plan, staged, result, progress) -> Interface:
+    from affix.emit.writer import emit, manifest_name
 
     lang = "all" if len(project.languages) > 1 else project.languages[0]
-    manifest = emit(plan, lang=lang, name=project.name, out_dir=staging, arith=project.arith, style=project.style,
-                    units=project.units)
-    written = [f for names in manifest["files"].values() for f in names] + [f"{project.name}.manifest.json"]
+    manifest = emit(plan, lang=lang, name=project.name, out_dir=staged.staging, arith=project.arith,
+                    style=project.style, units=project.units)
+    written = [f for names in manifest["files"].values() for f in names] + [manifest_name(project.name)]
+    for name in written:
+        staged.entry(name)  # written by emit's own file set, inside the build's staging folder
     interface = Interface.from_dict(manifest["interface"])
     _step(result, progress, "emit", f"{', '.join(written)}; interface {interface.id}")
     return interface
 
 
-def _verify(project, staging, result, progress) -> None:
+def _verify(project, staged, result, progress) -> None:
     from affix.verify.check import verify
 
-    report = verify(staging, vectors=project.vectors, seed=project.seed,
+    report = verify(staged.staging, vectors=project.vectors, seed=project.seed,
                     data=list(project.data_files) if project.calibration_rows else None)
-    files.write_json(staging / "verification.json", report.to_dict())
+    staged.write_json("verification.json", report.to_dict())
     _step(result, progress, "verify", f"PASS, {report.mismatches} mismatches in {report.evaluations} evaluations")
 
 
-def _diff_previous(out, staging, result, progress, warn) -> None:
+def _diff_previous(out, staged, result, progress, warn) -> None:
     from affix import diff
 
     try:
@@ -243,8 +248,8 @@ def _diff_previous(out, staging, result, progress, warn) -> None:
     except AffixError as exc:
         warn(f"the previous build cannot be compared with this one ({exc.message}); no diff.json")
         return
-    changes = diff.diff(old, diff.Calibration.load(staging, label="this build"))
-    files.write_text(staging / "diff.json", diff.to_json(changes))
+    changes = diff.diff(old, diff.Calibration.load(staged.staging, label="this build"))
+    staged.write_text("diff.json", diff.to_json(changes))
     largest = max(((abs(r), o, j) for o, e in changes["outputs"].items()
                    for j, r in enumerate(e["gain_relative_change"]) if r is not None), default=None)
     moved = "; gains unchanged" if largest is None or largest[0] == 0 else (
@@ -254,7 +259,7 @@ def _diff_previous(out, staging, result, progress, warn) -> None:
     _step(result, progress, "diff", f"against the previous build: {verdict}{moved} (diff.json)")
 
 
-def _record(project, model, interface, out, staging, result) -> dict:
+def _record(project, model, interface, out, staged, result) -> dict:
     data = [{"path": project.relative(p), "sha256": files.file_sha256(p)} for p in project.data_files]
     if combined(d["sha256"] for d in data) != model.data_sha256:
         raise DataError("a data file changed while the build read it; run the build again")
@@ -270,7 +275,7 @@ def _record(project, model, interface, out, staging, result) -> dict:
         "target_figures": None,
         "coverage": [c.to_dict() for c in result.coverage],
         "steps": list(result.steps),
-        "files": {name: files.file_sha256(staging / name) for name in _folder_files(staging) if name != RECORD},
+        "files": {name: files.file_sha256(staged.staging / name) for name in sorted(staged.names)},
     }
 
 
@@ -281,8 +286,3 @@ def _step(result, progress, step: str, summary: str) -> None:
 
 def _relative(path, start) -> str:
     return Path(os.path.relpath(path, start)).as_posix()
-
-
-def _folder_files(folder: Path) -> list[str]:
-    """Every file under ``folder``, as '/'-separated paths relative to it, sorted."""
-    return sorted(p.relative_to(folder).as_posix() for p in folder.rglob("*") if p.is_file())

@@ -168,7 +168,7 @@ def _project(path: Path, v: dict, fail) -> Project:
                 try:
                     check_units({column.name: column.unit}, [column.name])
                 except UsageError as exc:
-                    fail((kind, k, "unit"), exc.message.split(": ", 1)[1])
+                    fail((kind, k, "unit"), exc.reason)
     fixed, emit, verify = v["fixed_point"], v["emit"], v["verify"]
     if fixed["budget_rms_percent"] is not None and any(c.budget is not None for c in outputs):
         fail(("fixed_point", "budget_rms_percent"), "give either per-output budgets or an RMS growth, not both")
@@ -210,7 +210,7 @@ def _check_names(name, inputs, outputs, fail) -> None:
         try:
             check_names(*arguments)
         except UsageError as exc:
-            fail(where, exc.message.split(": ", 1)[1] if exc.option else exc.message)
+            fail(where, exc.reason)
     seen = set()
     for kind, columns in (("inputs", inputs), ("outputs", outputs)):
         for k, column in enumerate(columns):

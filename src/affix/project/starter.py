@@ -26,7 +26,7 @@ def input_extremes(paths, inputs, *, drop_invalid: bool):
 
     moments = merge_all(accumulate(read_files(paths, inputs, drop_invalid=drop_invalid), len(inputs), 1), len(inputs))
     if moments.count == 0:
-        raise UsageError("the data hold no usable row", "DATA")
+        raise UsageError("the data hold no usable row", "data")
     return moments.low, moments.high
 
 
@@ -40,8 +40,8 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
     ranges = options["input_ranges"]
     unknown = [key for key in ranges if key is not None and key not in inputs]
     if unknown:
-        raise UsageError(f"unknown input '{unknown[0]}' (the inputs are {', '.join(inputs)})", "--range")
-    input_lsb = resolve_per_name(inputs, options["input_lsb"], "--input-lsb", kind="input lsb")
+        raise UsageError(f"unknown input '{unknown[0]}' (the inputs are {', '.join(inputs)})", "input_ranges")
+    input_lsb = resolve_per_name(inputs, options["input_lsb"], "input_lsb", kind="input lsb")
     rows = []
     for name_j, lsb, low, high in zip(inputs, input_lsb, *extremes):
         scale = 1.0 if lsb is None else lsb
@@ -49,8 +49,8 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
         given = ranges.get(name_j, ranges.get(None))
         declared = list(given) if given else [math.floor(seen[0]), math.ceil(seen[1])]
         rows.append({"name": name_j, "range": declared, "seen": seen, "from_data": not given, "lsb": lsb})
-    budgets = resolve_per_name(outputs, options["budget"], "--budget", kind="budget")
-    lsbs = resolve_per_name(outputs, options["output_lsb"], "--lsb", kind="lsb")
+    budgets = resolve_per_name(outputs, options["budget"], "budget", kind="budget")
+    lsbs = resolve_per_name(outputs, options["output_lsb"], "output_lsb", kind="lsb")
     text = render(
         TEMPLATE,
         name=name,
@@ -82,4 +82,4 @@ def write_starter(path, text: str) -> None:
         files.write_new_text(path, text)
     except FileExistsError:
         raise UsageError(f"'{path}' exists; affix init never overwrites a project file (edit it, or give "
-                         "another --project)", "--project") from None
+                         "another project file)", "project") from None

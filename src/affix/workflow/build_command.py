@@ -19,7 +19,7 @@ def register(sub):
                         help="accept a change of the pinned interface and pin the new one")
     parser.add_argument("--force", action="store_true",
                         help="replace the previous build even where its files were edited by hand")
-    parser.set_defaults(run=run)
+    parser.set_defaults(run=run, reads=("project",))
 
 
 def run(args) -> int:

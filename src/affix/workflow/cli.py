@@ -124,7 +124,7 @@ def _run(argv: list[str]) -> int:
         return 2
     spell = functools.partial(_spelling, parser.commands[args.command])
     try:
-        with files.protected(getattr(args, dest) for dest in args.reads if getattr(args, dest)):
+        with files.protected(_paths(args, args.reads)):
             for dest, kind in args.writes.items():
                 check = files.check_folder_target if kind == "folder" else files.check_file_target
                 check(getattr(args, dest), dest)
@@ -135,6 +135,15 @@ def _run(argv: list[str]) -> int:
     except KeyboardInterrupt:
         print("affix: interrupted", file=sys.stderr)
         return 130
+
+
+def _paths(args, dests) -> list:
+    """The paths the arguments ``dests`` name; an argument may name several (nargs='+', repeatable)."""
+    paths = []
+    for dest in dests:
+        value = getattr(args, dest)
+        paths += value if isinstance(value, list) else [value] if value else []
+    return paths
 
 
 def _spelling(command: argparse.ArgumentParser, parameter: str) -> str:

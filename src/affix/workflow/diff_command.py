@@ -15,12 +15,12 @@ def register(sub):
     parser.add_argument("old", help="the earlier model file, plan file or build folder")
     parser.add_argument("new", help="the later one, of the same kind")
     parser.add_argument("--json", action="store_true", help="print the comparison as JSON")
-    parser.set_defaults(run=run)
+    parser.set_defaults(run=run, reads=("old", "new"))
 
 
 def run(args) -> int:
     from affix.diff import Calibration, diff, text, to_json
 
-    result = diff(Calibration.load(args.old), Calibration.load(args.new))
+    result = diff(Calibration.load(args.old, parameter="old"), Calibration.load(args.new, parameter="new"))
     print(to_json(result), end="") if args.json else print(text(result))
     return 5 if result["interface_changed"] else 0

@@ -31,7 +31,7 @@ def register(sub):
     add_emit_options(parser, lang_required=False)
     parser.add_argument("--vectors", type=int, default=10**6, metavar="N",
                         help="random vectors the build verifies (default 1000000)")
-    parser.set_defaults(run=run)
+    parser.set_defaults(run=run, reads=("data",), writes={"project": "file"})
 
 
 def run(args) -> int:
@@ -41,9 +41,7 @@ def run(args) -> int:
 
     project = Path(args.project)
     if project.exists():
-        raise UsageError(f"'{project}' exists; affix init never overwrites a project file", "--project")
-    if not project.parent.is_dir():
-        raise UsageError(f"folder '{project.parent}' does not exist", "--project")
+        raise UsageError(f"'{project}' exists; affix init never overwrites a project file", "project")
     inputs, outputs = column_names(args.inputs, "--inputs"), column_names(args.outputs, "--outputs")
     found, written = _data(args.data, project.parent)
     name = args.name or _default_name(found[0])
