@@ -64,7 +64,15 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
     pin = Interface.load(pin_path) if pin_path else None
     result = BuildResult(out)
     inputs = [project.path, *project.data_files, *([pin_path] if pin_path else [])]
-    with files.protected(inputs), files.FileSet(out, parameter="out", earlier=_earlier(previous, force)) as staged:
+    staged = None
+
+    def earlier(folder: Path) -> set[str]:
+        """What the build may replace or remove in its folder: what the last build wrote and, with
+        ``force``, whatever this build writes over (a file it never wrote is still left alone)."""
+        names = {RECORD, *previous["files"]} if previous else set()
+        return names | set(staged.names) if force else names
+
+    with files.protected(inputs), files.FileSet(out, parameter="out", earlier=earlier) as staged:
         model = _fit(project, staged, result, progress, warn)
         plan = _quantize(project, model, None if repin else pin, pin_path, staged, result, progress)
         interface = _emit(project, plan, staged, result, progress)
@@ -118,17 +126,6 @@ def previous_build(out: Path, *, force: bool) -> dict | None:
     return record
 
 
-def _earlier(previous: dict | None, force: bool):
-    """What the build may replace or remove in its folder (affix.files.FileSet): what the last
-    build wrote, or with ``force`` whatever is there."""
-    def earlier(folder: Path) -> set[str]:
-        if force:
-            return set(os.listdir(folder))
-        return set() if previous is None else {RECORD, *previous["files"]}
-
-    return earlier
-
-
 def _pin_path(project, previous) -> Path | None:
     """The pinned interface: the project's own, or the one the previous build's estimator name left behind."""
     if project.interface_path.is_file():
@@ -175,7 +172,11 @@ def _quantize(project, model, pin, pin_path, staged, result, progress):
     if project.calibration_rows:
         calibration = read_files(project.data_files, list(model.inputs), drop_invalid=project.drop_invalid)
     try:
-        plan = plan_fixed_point(model, **within(project.plan_options(), pin, model.outputs), calibration=calibration)
+        # The pin fixes the widths the project leaves open; the best-effort
+        # budget of an open search still applies, as it did in the first build.
+        options = within(project.plan_options(), pin, model.outputs)
+        default_budget = None in (project.coef_bits, project.acc_bits, project.output_type)
+        plan = plan_fixed_point(model, **options, default_budget=default_budget, calibration=calibration)
     except (NoConfigurationError, BudgetError) as exc:
         if pin is None or not exc.per_output:
             raise

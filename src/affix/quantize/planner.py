@@ -38,6 +38,7 @@ def plan_fixed_point(
     input_ctype=None,
     calibration=None,
     search=True,
+    default_budget=None,
     box_points=BOX_POINTS,
     seed=0,
 ) -> Plan:
@@ -50,7 +51,8 @@ def plan_fixed_point(
         input_lsb marks the model's inputs as physical: physical = lsb * count.
     budget: worst-case deviation limit per output (physical units).
     budget_rms: allowed growth of the total RMS over the float estimator, in percent.
-        With neither and some width left to search, 1 % growth is aimed at, best effort.
+        With neither, 1 % growth is aimed at, best effort, where ``default_budget`` says so;
+        its default, None, does so when some width is left to search.
     calibration: optional iterable of float arrays (rows, n_inputs) in the model's
         input units, to measure the integer reference on.
     target: the core or runtime (affix.targets) whose measured costs order the search
@@ -99,8 +101,9 @@ def plan_fixed_point(
         input_rms=np.sqrt((gain[:, physical] ** 2).sum(axis=1) / 12),
         input_worst=np.abs(gain[:, physical]).sum(axis=1) / 2,
     )
-    searching = None in (coef_bits, acc_bits, output_ctype)
-    chosen_budget = _budget(model, budget, budget_rms, float_rms, default=searching)
+    if default_budget is None:
+        default_budget = None in (coef_bits, acc_bits, output_ctype)
+    chosen_budget = _budget(model, budget, budget_rms, float_rms, default=default_budget)
     configs = configurations(coef_bits, acc_bits, output_ctype, target=core, n_inputs=len(box),
                              n_outputs=model.n_outputs)
     choice = choose(problem, configs, chosen_budget)
