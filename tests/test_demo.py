@@ -41,9 +41,21 @@ def test_demo_runs_the_whole_job(tmp_path):
     assert board.target == "micropython" and max(board.accumulator_bound) < 2**30
     assert "def estimate_into_viper" in (out / "micropython" / f"{ESTIMATOR}.py").read_text()
     # Every step printed the command it ran; both verifications passed with zero mismatches.
-    for step in ("$ affix fit", "$ affix quantize", "$ affix emit", "$ affix verify"):
+    for step in ("$ affix fit", "$ affix quantize", "$ affix emit", "$ affix verify", "$ affix init",
+                 "$ affix build", "$ affix diff build-first build"):
         assert step in result.stdout
     assert result.stdout.count("PASS: 0 mismatches") == 2
     assert "MicroPython wrist_ft.py estimate_into_viper()" in result.stdout
     # The summary gives what the estimator costs on the Cortex-M4, measured on the emulated core.
     assert re.search(rf"{CORE}: \d+ instructions per evaluation \(emulated\), flash \d+ bytes", result.stdout)
+
+    # The recalibration loop: the aged sensor's second build kept the pinned interface.
+    first, second = (json.loads((out / folder / "build.json").read_text()) for folder in ("build-first", "build"))
+    assert first["interface_id"] == second["interface_id"]
+    assert first["data"][0]["path"] == "wrist_calibration.csv" and second["data"][0]["path"] == "wrist_recalibration.csv"
+    changes = json.loads((out / "build" / "diff.json").read_text())
+    assert changes["interface_changed"] is False
+    assert "interface unchanged" in result.stdout.split("$ affix diff", 1)[1]
+    # Aged gauges lose 1 to 3 % of their sensitivity, so the gains that matter rise by about as much.
+    fz = changes["outputs"]["Fz"]["gain_relative_change"]
+    assert all(0.005 < fz[j] < 0.035 for j in (0, 2, 4))  # the bending bridges carry Fz

@@ -52,7 +52,7 @@ def test_model_diff_matches_numpy(two_runs):
     for i, name in enumerate(colour_sensor.OUTPUTS):
         output = result["outputs"][name]
         np.testing.assert_allclose(output["gain_change"], g2[i] - g1[i], rtol=1e-8, atol=1e-12)
-        np.testing.assert_allclose(output["gain_relative_change"], (g2[i] - g1[i]) / np.abs(g1[i]), rtol=1e-6)
+        np.testing.assert_allclose(output["gain_relative_change"], (g2[i] - g1[i]) / g1[i], rtol=1e-6)
         assert output["offset_change"] == pytest.approx(b2[i] - b1[i], rel=1e-6, abs=1e-9)
         # affix's RMS comes from the error covariance S_xx - A S_yx, which cancels to about one part
         # in (output spread / RMS)^2 ~ 1e7 here: agreement to 1e-7 is what double precision allows.

@@ -15,6 +15,7 @@ from dataclasses import replace
 
 import pytest
 
+from affix.emit.names import INFIXES
 from affix.emit.writer import emit
 from affix.errors import FileFormatError
 from affix.interface import Interface, describe
@@ -85,6 +86,22 @@ def test_the_interface_lists_every_name_the_header_declares(tmp_path):
     header = re.sub(r"/\*.*?\*/", "", (tmp_path / "probe.h").read_text(), flags=re.S)
     declared = set(re.findall(r"\b(?:probe|PROBE)_\w+", header))
     assert declared == set(manifest["interface"]["c"]["identifiers"])
+
+
+def test_every_listed_name_is_a_fixed_word_or_an_infix_and_a_users_name():
+    # DEVELOPERS.md "Generated identifiers": with prefix-free infixes that no fixed word starts
+    # with, no choice of user names can make two generated identifiers equal.
+    plan = random_plan(17, 3, 2)
+    listed = describe(plan, "probe", languages=("c",)).c["identifiers"]
+    users = set(plan.inputs) | set(plan.outputs)
+    assert not any(a != b and b.startswith(a) for a in INFIXES for b in INFIXES)
+    for identifier in listed:
+        word = identifier.split("_", 1)[1]
+        infix = next((i for i in INFIXES if word.startswith(i)), None)
+        if infix is None:
+            assert not any(word.lower().startswith(i) for i in INFIXES), identifier
+        else:
+            assert word[len(infix):] in users, identifier
 
 
 def test_changes_are_listed_one_per_line_and_a_reordering_reads_as_such():

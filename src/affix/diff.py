@@ -176,7 +176,8 @@ def _in_old_steps(new: int, old: int, new_step: float, old_step: float, same_sca
 
 
 def _relative(old, new):
-    return None if old is None or old == 0 else (new - old) / abs(old)
+    """(new - old) / old: a gain whose magnitude grows by 3 % reads +3 % whatever its sign."""
+    return None if old is None or old == 0 else (new - old) / old
 
 
 def _figure(old, new) -> dict:
@@ -187,6 +188,21 @@ def _figure(old, new) -> dict:
 
 def _names_only(inputs, outputs) -> dict:
     return {"inputs": [{"name": n} for n in inputs], "outputs": [{"name": n} for n in outputs]}
+
+
+def largest_gain_change(result: dict, model: Model):
+    """(output, input, relative change) of the largest relative change among the gains that
+    matter, or None when no gain moved.  A gain matters when its input's calibration span
+    carries at least 5 % of the output's swing: a cross-term near zero can change by a large
+    factor and mean nothing."""
+    spans = np.ptp(np.vstack([model.input_min, model.input_max]), axis=0) if model.input_min is not None else None
+    best = None
+    for name, entry in result["outputs"].items():
+        gains = np.abs(model.gain[model.outputs.index(name)]) * (1.0 if spans is None else spans)
+        for j, change in enumerate(entry["gain_relative_change"]):
+            if change and gains[j] >= 0.05 * gains.sum() and (best is None or abs(change) > abs(best[2])):
+                best = (name, result["input_order"][j], change)
+    return best
 
 
 def to_json(result: dict) -> str:
@@ -220,12 +236,15 @@ def text(result: dict, largest: int = 3) -> str:
         lines.append("calibration data (counts or the model's input units):")
         for name, i in result["inputs"].items():
             span = f", span {_pair(i['span'])}" if "span" in i else ""
-            lines.append(f"  {name}: mean {_pair(i['mean'])}{span}")
+            mean = i["mean"]
+            lines.append(f"  {name}: mean {mean['old']:.6g} -> {mean['new']:.6g} ({mean['change']:+.4g}){span}")
     return "\n".join(lines)
 
 
 def _signed(value) -> str:
-    return "-" if value is None else f"{value:+.4g}"
+    if value is None:
+        return "-"
+    return f"{value:+d}" if isinstance(value, int) else f"{value:+.4g}"
 
 
 def _percent(value) -> str:

@@ -89,35 +89,30 @@ def write_text(path, text: str, *, parameter: str = "path") -> None:
         except OSError as exc:
             raise WriteError(f"cannot write ({exc.strerror})", path) from None
         return
-    try:
-        temporary = _new_file(path.parent, f".{path.name[:_NAME_KEPT]}.", lambda handle: handle.write(text))
-    except OSError as exc:
-        raise WriteError(f"cannot write ({exc.strerror})", path) from None
-    try:
-        os.replace(temporary, path)
-    except BaseException as exc:
-        os.unlink(temporary)
-        if isinstance(exc, OSError):
-            raise WriteError(f"cannot write ({exc.strerror})", path) from None
-        raise
+    _write_beside(path, text, os.replace)
 
 
 def write_new_text(path, text: str, *, parameter: str = "path") -> None:
     """Write a file that must not exist yet: FileExistsError if it does, even if
     it appears while this runs (a hard link never replaces its target)."""
-    path = check_file_target(path, parameter)
+    _write_beside(check_file_target(path, parameter), text, os.link)
+
+
+def _write_beside(path: Path, text: str, place) -> None:
+    """``text`` into a temporary file beside ``path`` (a checked target), then ``place(temporary, path)``."""
     try:
-        temporary = _new_file(path.parent, f".{path.name}.", lambda handle: handle.write(text))
+        temporary = _new_file(path.parent, f".{path.name[:_NAME_KEPT]}.", lambda handle: handle.write(text))
     except OSError as exc:
         raise WriteError(f"cannot write ({exc.strerror})", path) from None
     try:
-        os.link(temporary, path)
+        place(temporary, path)
     except FileExistsError:
         raise
     except OSError as exc:
         raise WriteError(f"cannot write ({exc.strerror})", path) from None
     finally:
-        os.unlink(temporary)
+        if os.path.lexists(temporary):  # a rename consumed it; a link left it
+            os.unlink(temporary)
 
 
 def write_json(path, data, *, parameter: str = "path") -> None:

@@ -249,13 +249,12 @@ def _diff_previous(out, staged, result, progress, warn) -> None:
     except AffixError as exc:
         warn(f"the previous build cannot be compared with this one ({exc.message}); no diff.json")
         return
-    changes = diff.diff(old, diff.Calibration.load(staged.staging, label="this build"))
+    new = diff.Calibration.load(staged.staging, label="this build")
+    changes = diff.diff(old, new)
     staged.write_text("diff.json", diff.to_json(changes))
-    largest = max(((abs(r), o, j) for o, e in changes["outputs"].items()
-                   for j, r in enumerate(e["gain_relative_change"]) if r is not None), default=None)
-    moved = "; gains unchanged" if largest is None or largest[0] == 0 else (
-        f"; largest relative gain change {largest[1]}/{changes['input_order'][largest[2]]} "
-        f"{changes['outputs'][largest[1]]['gain_relative_change'][largest[2]]:+.3%}")
+    largest = diff.largest_gain_change(changes, new.model)
+    moved = "; gains unchanged" if largest is None else (
+        f"; largest gain change {largest[0]}/{largest[1]} {largest[2]:+.2%}")
     verdict = "interface CHANGED" if changes["interface_changed"] else "interface unchanged"
     _step(result, progress, "diff", f"against the previous build: {verdict}{moved} (diff.json)")
 

@@ -108,6 +108,7 @@ def integer_range(value):
     return (value[0], value[1])
 
 
+COLUMN = Key(text, "the data column (and the C/MicroPython name)", required=True)
 UNIT = Key(text, "unit of the values, for comments and the interface (ASCII; e.g. \"N\", \"N*m\", \"degC\")")
 
 SCHEMA = Table(
@@ -137,7 +138,7 @@ SCHEMA = Table(
             required=True,
             many=True,
             keys={
-                "name": Key(text, "the data column (and the C/MicroPython name)", required=True),
+                "name": COLUMN,
                 "range": Key(integer_range, "[LO, HI], the declared range in integer counts", required=True),
                 "lsb": Key(number(positive=True), "physical size of one count, when the data hold physical values"),
                 "unit": UNIT,
@@ -148,7 +149,7 @@ SCHEMA = Table(
             required=True,
             many=True,
             keys={
-                "name": Key(text, "the data column (and the C/MicroPython name)", required=True),
+                "name": COLUMN,
                 "budget": Key(number(positive=False), "largest worst-case deviation of the integer code, physical units"),
                 "lsb": Key(number(positive=True), "physical size of one output count (default: finest power of two)"),
                 "unit": UNIT,

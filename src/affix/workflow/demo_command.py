@@ -5,8 +5,10 @@ same entry point, so the demo doubles as a worked example of the workflow.
 """
 from __future__ import annotations
 
+import json
 import os
 import shlex
+import shutil
 from pathlib import Path
 
 from affix import files
@@ -22,6 +24,13 @@ ESTIMATOR = "wrist_ft"
 CORE = "cortex-m4"
 DATA, MODEL, PLAN, FIRMWARE = "wrist_calibration.csv", "wrist_model.json", "wrist_plan.json", "firmware"
 BOARD_PLAN, BOARD = "wrist_plan_micropython.json", "micropython"
+# The recalibration loop: the project file, its pinned interface, the second
+# run's log, the build folder and the first build kept for comparison.
+PROJECT, INTERFACE, RECALIBRATION = "affix.toml", f"{ESTIMATOR}.interface.json", "wrist_recalibration.csv"
+BUILD, FIRST_BUILD = "build", "build-first"
+# The declared box: the rated wrench reaches about +-20000 counts on each
+# bridge, and the thermistor reads 1500..3000 between 11 and 49 degC.
+RANGES = ("-22000:22000", "therm=1500:3000")
 
 
 def register(sub):
@@ -29,7 +38,9 @@ def register(sub):
         "demo",
         help="run the whole job on a generated calibration of a six-bridge wrist force/torque sensor",
         description="Generate the demo's calibration log in OUTDIR, then fit, quantize for a Cortex-M4 "
-        "and for a MicroPython board, emit C and MicroPython, and verify them, printing each command as it runs.",
+        "and for a MicroPython board, emit C and MicroPython, and verify them, printing each command as it runs; "
+        "then the recalibration loop: a project file, a build, a second calibration run of the aged sensor, "
+        "a rebuild and the diff.",
     )
     parser.add_argument("outdir", help="folder for the demo's files (created if missing)")
     parser.set_defaults(run=lambda args: run_demo(args.outdir), writes={"outdir": "folder"})
@@ -49,7 +60,8 @@ def run_demo(outdir) -> int:
     except _StepFailed as failed:
         return failed.status
     print(f"done: {Path(outdir) / FIRMWARE / (ESTIMATOR + '.h')} and {ESTIMATOR}.c for the {CORE}, "
-          f"{Path(outdir) / BOARD / (ESTIMATOR + '.py')} for MicroPython")
+          f"{Path(outdir) / BOARD / (ESTIMATOR + '.py')} for MicroPython; the recalibrated build in "
+          f"{Path(outdir) / BUILD}, its changes in {Path(outdir) / BUILD / 'diff.json'}")
     return 0
 
 
@@ -66,16 +78,15 @@ def _steps(staged) -> None:
 
     demo_scenario.write_csv(staged.entry(DATA))
     print(f"step 1: the calibration rig's log, {demo_scenario.ROWS} rows -> {DATA}\n")
-    for name in (MODEL, PLAN, FIRMWARE, BOARD_PLAN, BOARD):
+    for name in (MODEL, PLAN, FIRMWARE, BOARD_PLAN, BOARD, PROJECT, INTERFACE, BUILD, FIRST_BUILD):
         staged.entry(name)
-    box = ["--range", "-32768:32767", "--range", "therm=0:4095", "--output-type", "int16_t"]
-    steps = [
-        ("fit counts to wrench",
-         ["fit", DATA, "--inputs", ",".join(demo_scenario.INPUTS), "--outputs", ",".join(demo_scenario.OUTPUTS),
-          "--out", MODEL]),
+    columns = ["--inputs", ",".join(demo_scenario.INPUTS), "--outputs", ",".join(demo_scenario.OUTPUTS)]
+    box = [f"--range={r}" for r in RANGES] + ["--output-type", "int16_t"]
+    budget = ["--budget", ",".join(f"{k}={v}" for k, v in BUDGET.items())]
+    number = _run(main, 2, [
+        ("fit counts to wrench", ["fit", DATA, *columns, "--out", MODEL]),
         (f"choose the integer format for a {CORE} against the budget",
-         ["quantize", MODEL, *box, "--budget", ",".join(f"{k}={v}" for k, v in BUDGET.items()),
-          "--target", CORE, "--data", DATA, "--out", PLAN]),
+         ["quantize", MODEL, *box, *budget, "--target", CORE, "--data", DATA, "--out", PLAN]),
         ("emit C, and measure it on the emulated core",
          ["emit", PLAN, "--lang", "c", "--name", ESTIMATOR, "--out", FIRMWARE]),
         ("verify it bit for bit", ["verify", FIRMWARE, "--data", DATA]),
@@ -85,23 +96,56 @@ def _steps(staged) -> None:
         ("emit MicroPython, with its allocation-free viper variant",
          ["emit", BOARD_PLAN, "--lang", "micropython", "--name", ESTIMATOR, "--out", BOARD]),
         ("verify it bit for bit in the MicroPython runtime", ["verify", BOARD, "--data", DATA]),
-    ]
-    for number, (title, argv) in enumerate(steps, start=2):
+        (f"the {CORE} job as one project file, for the recalibrations to come",
+         ["init", DATA, *columns, "--name", ESTIMATOR, *box, *budget, "--target", CORE, "--lang", "c"]),
+        (f"build it: fit, quantize, emit, verify into {BUILD}/, pinning the interface in {INTERFACE}",
+         ["build"]),
+    ])
+    demo_scenario.write_csv(staged.entry(RECALIBRATION), run=2)
+    shutil.copytree(BUILD, FIRST_BUILD)
+    project = Path(PROJECT)
+    project.write_text(project.read_text().replace(f'files = ["{DATA}"]', f'files = ["{RECALIBRATION}"]'))
+    print(f"step {number}: months later the same sensor is calibrated again; its bridges have aged: {RECALIBRATION}\n"
+          f"$ cp -r {BUILD} {FIRST_BUILD}          # keep the first build to compare\n"
+          f"$ edit {PROJECT}: files = [\"{RECALIBRATION}\"]\n")
+    _run(main, number + 1, [
+        ("rebuild: new coefficients within the pinned interface (same scales, same fingerprint)", ["build"]),
+        ("what the recalibration changed", ["diff", FIRST_BUILD, BUILD]),
+    ])
+
+
+def _run(main, first: int, steps) -> int:
+    """Run each (title, argv) as a numbered step, printing the command first; stop at a failure.
+    The number of the step after them."""
+    for number, (title, argv) in enumerate(steps, start=first):
         print(f"step {number}: {title}\n$ affix {shlex.join(argv)}")
         status = main(argv)
         print()
         if status:
             raise _StepFailed(status)
+    return first + len(steps)
 
 
 def _earlier_demo(outdir: Path) -> set[str]:
-    """What an earlier demo left in OUTDIR: its four files, and its firmware folders where they hold only
-    what an emit wrote (a folder of anyone else's stays untouched, and the demo is refused)."""
+    """What an earlier demo left in OUTDIR: its files, its firmware folders where they hold only what an
+    emit wrote, and its build folders where they hold only what a build wrote (a folder of anyone else's
+    stays untouched, and the demo is refused)."""
     from affix.emit.writer import emitted_before
 
-    names = {DATA, MODEL, PLAN, BOARD_PLAN}
+    names = {DATA, MODEL, PLAN, BOARD_PLAN, PROJECT, INTERFACE, RECALIBRATION}
     for folder in (FIRMWARE, BOARD):
         emitted = outdir / folder
         if emitted.is_dir() and set(os.listdir(emitted)) <= emitted_before(emitted):
             names.add(folder)
+    for build in (BUILD, FIRST_BUILD):
+        if (outdir / build).is_dir() and set(os.listdir(outdir / build)) <= _built(outdir / build):
+            names.add(build)
     return names
+
+
+def _built(folder: Path) -> set[str]:
+    """The files a build folder's record says the build wrote, and the record."""
+    try:
+        return {"build.json", *json.loads((folder / "build.json").read_text())["files"]}
+    except (OSError, UnicodeDecodeError, ValueError, KeyError, TypeError):
+        return set()

@@ -38,12 +38,22 @@ def sensitivity(rng) -> np.ndarray:
     return k + rng.normal(scale=0.03, size=k.shape) * typical
 
 
-def calibration_rows(rows: int = ROWS, seed: int = SEED) -> dict[str, np.ndarray]:
-    """The rig log: column name -> values.  Bridge and thermistor columns are integer counts."""
+def calibration_rows(rows: int = ROWS, seed: int = SEED, run: int = 1) -> dict[str, np.ndarray]:
+    """The rig log of calibration run ``run``: column name -> values.  Bridge and
+    thermistor columns are integer counts.
+
+    Every run calibrates the same sensor.  By a later run the bridges have aged:
+    each has lost 1 to 3 % of its sensitivity (the gauges' adhesive creeps) and
+    its zero has moved by some tens of counts; the rig applies a new set of loads.
+    """
     rng = np.random.default_rng(seed)
     k = sensitivity(rng)
     zero = rng.uniform(-1500, 1500, size=6)  # counts at no load, 25 degC
     drift = rng.uniform(-14, 14, size=6)  # counts per degC
+    if run > 1:
+        rng = np.random.default_rng([seed, run])  # this run's own loads and noise
+        k = k * (1 - rng.uniform(0.01, 0.03, size=(6, 1)))
+        zero = zero + rng.normal(scale=40.0, size=6)
     wrench = rng.uniform(-0.8, 0.8, size=(rows, 6)) * RATED
     temperature = rng.uniform(15.0, 45.0, size=rows)
     bridges = zero + wrench @ k.T + np.outer(temperature - 25.0, drift) + rng.normal(scale=4.0, size=(rows, 6))
@@ -56,8 +66,8 @@ def calibration_rows(rows: int = ROWS, seed: int = SEED) -> dict[str, np.ndarray
     return data
 
 
-def write_csv(path, rows: int = ROWS, seed: int = SEED) -> None:
-    data = calibration_rows(rows, seed)
+def write_csv(path, rows: int = ROWS, seed: int = SEED, run: int = 1) -> None:
+    data = calibration_rows(rows, seed, run)
     lines = [",".join(INPUTS + OUTPUTS)]
     for r in range(rows):
         counts = ",".join(str(int(data[name][r])) for name in INPUTS)
