@@ -42,21 +42,26 @@ def test_a_build_runs_every_step_and_records_what_it_was_made_from(tmp_path):
     done = build(tmp_path)
     assert done.returncode == 0, done.stderr
     steps = [line.split()[0] for line in done.stdout.splitlines() if not line.startswith(" ")]
-    assert steps[:4] == ["fit", "quantize", "emit", "verify"] and steps[-1] == "built"
+    assert steps == ["fit", "quantize", "emit", "verify", "report", "built"]
     out = tmp_path / "build"
     record = json.loads((out / "build.json").read_text())
     assert record["format"] == "affix.build/1" and record["name"] == "colour"
     assert record["project"] == "../affix.toml"  # relative to the build folder
     assert record["data"] == [{"path": "colour.csv",
                                "sha256": hashlib.sha256((tmp_path / "colour.csv").read_bytes()).hexdigest()}]
-    assert record["target"] is None and record["target_figures"] is None
-    assert [s["step"] for s in record["steps"]] == ["fit", "quantize", "emit", "verify"]
+    # The default target is the host: its figures measured on the emulated x86-64 core, numbers only.
+    assert record["target"] == "host" and record["target_figures"]["flash_bytes"] > 0
+    assert all(isinstance(v, (int, float)) for v in record["target_figures"].values())
+    assert [s["step"] for s in record["steps"]] == ["fit", "quantize", "emit", "verify", "report"]
     # Every other file of the folder, with its hash.
     files = snapshot(out)
     del files["build.json"]
     assert record["files"] == files
     assert set(files) == {"model.json", "plan.json", "colour.h", "colour.c", "colour.manifest.json",
-                          "verification.json"}
+                          "verification.json", "report.html"}
+    # The report was drawn from the staged folder before it moved into place, with the data found.
+    report = (out / "report.html").read_text()
+    assert "No calibration data could be used" not in report and "no such file" not in report
     header = (out / "colour.h").read_text()
     assert f"#define COLOUR_INTERFACE_ID {record['interface_id']}UL" in header
     pinned = json.loads((tmp_path / "colour.interface.json").read_text())
@@ -80,11 +85,12 @@ def test_two_builds_of_the_same_inputs_are_identical_byte_for_byte_also_from_ano
     for text in map(lambda p: p.read_text(), (second / "build").iterdir()):
         assert str(tmp_path) not in text and "/tmp" not in text  # no absolute path in any file
     # A rebuild in place plans within the interface the first build pinned: the same files, and the
-    # diff against the previous build; the next rebuild repeats it exactly.
+    # diff against the previous build (which the report shows too); the next rebuild repeats it exactly.
     assert build(first).returncode == 0
     again = snapshot(first / "build")
-    first_build = {k: v for k, v in snapshot(second / "build").items() if k != "build.json"}
-    assert {k: v for k, v in again.items() if k not in ("diff.json", "build.json")} == first_build
+    recorded = ("diff.json", "build.json", "report.html")
+    first_build = {k: v for k, v in snapshot(second / "build").items() if k not in recorded}
+    assert {k: v for k, v in again.items() if k not in recorded} == first_build
     assert "diff.json" in again
     assert build(first).returncode == 0
     assert snapshot(first / "build") == again
@@ -164,7 +170,7 @@ def test_a_failed_step_leaves_the_previous_build_untouched(tmp_path, monkeypatch
     # The fit fails: a row without a value.
     (tmp_path / "colour.csv").write_text((tmp_path / "colour.csv").read_text() + "1,2,,4,5,6\n")
     done = build(tmp_path)
-    assert done.returncode == 2 and "row 501" in done.stderr
+    assert done.returncode == 2 and "colour.csv, line 502" in done.stderr
     assert snapshot(out) == kept
     # Quantize fails after the fit has written its model into the staging folder: within the
     # pinned interface no integer code meets this budget (exit 5, as for any pinned plan that fails).
@@ -226,3 +232,20 @@ def test_a_declared_range_far_beyond_the_data_is_one_warning_naming_the_input(tm
     coverage = json.loads((tmp_path / "build" / "build.json").read_text())["coverage"]
     assert coverage[0]["seen"] == [low, high] and coverage[0]["extrapolated"] is True
     assert [c["extrapolated"] for c in coverage[1:]] == [False, False]
+
+
+def test_the_target_and_the_input_type_come_from_the_project(tmp_path):
+    require("arm-none-eabi-gcc")  # the target's cross compiler measures flash and stack
+    project(tmp_path, extra='\n[build]\nreport = false\n')
+    path = tmp_path / "affix.toml"
+    path.write_text(path.read_text().replace('output_type = "int16_t"',
+                                             'output_type = "int16_t"\ntarget = "cortex-m4"\ninput_type = "int32_t"'))
+    done = build(tmp_path)
+    assert done.returncode == 0, done.stderr
+    record = json.loads((tmp_path / "build" / "build.json").read_text())
+    assert record["target"] == "cortex-m4" and record["target_figures"]["instructions_per_evaluation"] > 0
+    assert [s["step"] for s in record["steps"]] == ["fit", "quantize", "emit", "verify"]  # report = false
+    plan = json.loads((tmp_path / "build" / "plan.json").read_text())
+    assert plan["target"] == "cortex-m4" and plan["input_ctype"] == "int32_t"
+    assert Interface.load(tmp_path / "colour.interface.json").input_ctype == "int32_t"
+    assert "void colour_estimate(const int32_t y[COLOUR_N_INPUTS]" in (tmp_path / "build" / "colour.h").read_text()

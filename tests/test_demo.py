@@ -52,6 +52,7 @@ def test_demo_runs_the_whole_job(tmp_path):
     # The recalibration loop: the aged sensor's second build kept the pinned interface.
     first, second = (json.loads((out / folder / "build.json").read_text()) for folder in ("build-first", "build"))
     assert first["interface_id"] == second["interface_id"]
+    assert second["target"] == CORE and second["target_figures"]["instructions_per_evaluation"] > 0
     assert first["data"][0]["path"] == "wrist_calibration.csv" and second["data"][0]["path"] == "wrist_recalibration.csv"
     changes = json.loads((out / "build" / "diff.json").read_text())
     assert changes["interface_changed"] is False

@@ -8,7 +8,8 @@ firmware interface (names, order, types, box, output scales) are listed
 apart: those break calling code, the rest does not.
 
 Gains are the model's (output units per unit of the model's input) where a
-model is at hand, else the plan's (per input count).  A coefficient's change
+model is at hand, else the plan's (per input count); an input the old
+calibration lacked counts as a gain (and coefficient) of 0 there.  A coefficient's change
 "in its old lsbs" is ``new_a * new_step / old_step - old_a`` with step =
 lsb / 2**shift, an exact integer when the lsb and shift stayed the same.
 """
@@ -103,9 +104,9 @@ def diff(old: Calibration, new: Calibration) -> dict:
 def _output(old: Calibration, new: Calibration, k: int, i: int, columns) -> dict:
     old_gain, new_gain = _gain(old, k), _gain(new, i)
     old_offset, new_offset = _offset(old, k), _offset(new, i)
-    matched = [None if j is None else old_gain[j] for j in columns]
+    matched = [None if j is None else old_gain[j] for j in columns]  # None: an input the old one lacked
     entry = {
-        "gain_change": [None if g is None else n - g for g, n in zip(matched, new_gain)],
+        "gain_change": [n - (0.0 if g is None else g) for g, n in zip(matched, new_gain)],
         "gain_relative_change": [_relative(g, n) for g, n in zip(matched, new_gain)],
         "offset_change": new_offset - old_offset,
         "offset_relative_change": _relative(old_offset, new_offset),
@@ -116,7 +117,7 @@ def _output(old: Calibration, new: Calibration, k: int, i: int, columns) -> dict
         same_scale = old_step == new_step
         old_coefficients = old.plan.coefficients[k]
         entry["coefficient_change"] = [
-            None if j is None else _in_old_steps(a, old_coefficients[j], new_step, old_step, same_scale)
+            _in_old_steps(a, 0 if j is None else old_coefficients[j], new_step, old_step, same_scale)
             for a, j in zip(new.plan.coefficients[i], columns)
         ]
         entry["offset_coefficient_change"] = _in_old_steps(new.plan.offsets[i], old.plan.offsets[k], new_step,

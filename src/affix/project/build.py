@@ -30,9 +30,10 @@ from affix import files
 from affix._version import __version__
 from affix.coverage import coverage, summary_line
 from affix.errors import (AffixError, BudgetError, DataError, FileFormatError, InterfaceError, NoConfigurationError,
-                          UsageError, parameter)
+                          ToolError, UsageError, parameter)
 from affix.intake.digest import combined
 from affix.interface import Interface
+from affix.targets import get_target
 
 BUILD_FORMAT = "affix.build/1"
 RECORD = "build.json"
@@ -48,6 +49,8 @@ class BuildResult:
     pin: str = ""
     interface_changes: list[str] = field(default_factory=list)
     coverage: list = field(default_factory=list)  # affix.coverage.InputCoverage per input
+    target: str | None = None  # the plan's target (affix.targets)
+    target_figures: dict | None = None  # its numbers from affix.targets.figures, where measured
     record: dict | None = None  # build.json
 
 
@@ -75,7 +78,7 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
     with files.protected(inputs), files.FileSet(out, parameter="out", earlier=earlier) as staged:
         model = _fit(project, staged, result, progress, warn)
         plan = _quantize(project, model, None if repin else pin, pin_path, staged, result, progress)
-        interface = _emit(project, plan, staged, result, progress)
+        interface = _emit(project, plan, staged, result, progress, warn)
         result.interface_changes = pin.changes(interface) if pin else []
         if result.interface_changes and not repin:
             raise InterfaceError(
@@ -85,9 +88,8 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
         _verify(project, staged, result, progress)
         if previous is not None:
             _diff_previous(out, staged, result, progress, warn)
-        # The report (affix report, issue 11) belongs here, the last step
-        # before the folder moves into place: it writes report.html from the
-        # files above and build.json's inputs.
+        if project.report:
+            _report(project, model, interface, out, staged, result, progress, warn)
         result.record = _record(project, model, interface, out, staged, result)
         staged.write_json(RECORD, result.record)
     result.interface = interface
@@ -199,7 +201,7 @@ def _quantize(project, model, pin, pin_path, staged, result, progress):
 
 def within(options: dict, pin: Interface | None, outputs) -> dict:
     """``options`` with every choice the project leaves open taken from the pinned interface:
-    widths, output type and the lsb of each of ``outputs``.  What the project states stays,
+    widths, input and output types and the lsb of each of ``outputs``.  What the project states stays,
     so a deliberate change shows as an interface change rather than being overridden."""
     if pin is None:
         return options
@@ -210,6 +212,8 @@ def within(options: dict, pin: Interface | None, outputs) -> dict:
                 options[key] = pin.fixed_point[key]
     if options["output_ctype"] is None and pin.output_ctype != "float":
         options["output_ctype"] = pin.output_ctype
+    if options["input_ctype"] is None:
+        options["input_ctype"] = pin.input_ctype
     lsbs = dict(options["output_lsb"] or {})
     for port in pin.outputs:
         if port["lsb"] is not None and port["name"] in outputs:
@@ -218,7 +222,7 @@ def within(options: dict, pin: Interface | None, outputs) -> dict:
     return options
 
 
-def _emit(project, plan, staged, result, progress) -> Interface:
+def _emit(project, plan, staged, result, progress, warn) -> Interface:
     from affix.emit.writer import emit, manifest_name
 
     lang = "all" if len(project.languages) > 1 else project.languages[0]
@@ -229,7 +233,41 @@ def _emit(project, plan, staged, result, progress) -> Interface:
         staged.entry(name)  # written by emit's own file set, inside the build's staging folder
     interface = Interface.from_dict(manifest["interface"])
     _step(result, progress, "emit", f"{', '.join(written)}; interface {interface.id}")
+    result.target = plan.target
+    if "c" in manifest["files"] and project.arith == "int" and get_target(plan.target).compiler is not None:
+        _measure(staged, plan.target, result, progress, warn)
     return interface
+
+
+def _measure(staged, target, result, progress, warn) -> None:
+    """What the emitted C costs on the target (as 'affix emit' prints it), kept for build.json."""
+    from affix.targets.figures import figures_text, target_figures
+
+    try:
+        figures = target_figures(staged.staging, target)
+    except ToolError as exc:
+        warn(f"{target}: no figures ({exc.message})")
+        return
+    progress(f"{'':10}{figures_text(figures)}")
+    result.target_figures = {key: value for key, value in figures.items()
+                             if isinstance(value, (int, float)) and not isinstance(value, bool)}
+
+
+def _report(project, model, interface, out, staged, result, progress, warn) -> None:
+    """report.html, drawn from the staged folder as it will stand: the last step before it moves into place."""
+    import importlib.util
+
+    if importlib.util.find_spec("matplotlib") is None:
+        from affix.report import INSTALL_HINT
+
+        result.steps.append({"step": "report", "status": "skipped"})
+        warn(f"no report.html: the report needs matplotlib ({INSTALL_HINT}), or set build.report = false")
+        return
+    from affix.report import REPORT_FILE, render_report
+
+    record = _record(project, model, interface, out, staged, result)  # all but the report's own hash
+    staged.write_text(REPORT_FILE, render_report(staged.staging, record=record, home=out))
+    _step(result, progress, "report", REPORT_FILE)
 
 
 def _verify(project, staged, result, progress) -> None:
@@ -271,8 +309,8 @@ def _record(project, model, interface, out, staged, result) -> dict:
         "interface_file": _relative(project.interface_path, out),
         "interface_id": interface.id,
         "data": data,
-        "target": None,
-        "target_figures": None,
+        "target": result.target,
+        "target_figures": result.target_figures,
         "coverage": [c.to_dict() for c in result.coverage],
         "steps": list(result.steps),
         "files": {name: files.file_sha256(staged.staging / name) for name in sorted(staged.names)},

@@ -55,6 +55,8 @@ class Project:
     coef_bits: int | None
     acc_bits: int | None
     output_type: str | None
+    input_type: str | None
+    target: str
     rounding: str
     coefficient_search: bool
     budget_rms_percent: float | None
@@ -66,6 +68,7 @@ class Project:
     seed: int
     calibration_rows: bool
     out: Path
+    report: bool
 
     @property
     def folder(self) -> Path:
@@ -99,6 +102,8 @@ class Project:
             "budget": budgets or None,
             "budget_rms": self.budget_rms_percent,
             "rounding": self.rounding,
+            "target": self.target,
+            "input_ctype": self.input_type,
             "search": self.coefficient_search,
         }
 
@@ -187,6 +192,8 @@ def _project(path: Path, v: dict, fail) -> Project:
         coef_bits=fixed["coef_bits"],
         acc_bits=fixed["acc_bits"],
         output_type=fixed["output_type"],
+        input_type=fixed["input_type"],
+        target=fixed["target"],
         rounding=fixed["rounding"],
         coefficient_search=fixed["coefficient_search"],
         budget_rms_percent=fixed["budget_rms_percent"],
@@ -198,6 +205,7 @@ def _project(path: Path, v: dict, fail) -> Project:
         seed=verify["seed"],
         calibration_rows=verify["calibration_rows"],
         out=folder / v["build"]["out"],
+        report=v["build"]["report"],
     )
 
 

@@ -10,9 +10,10 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from affix.arithmetic import ACC_BITS, COEF_BITS, OUTPUT_CTYPES, ROUNDINGS
+from affix.arithmetic import ACC_BITS, COEF_BITS, INPUT_CTYPES, OUTPUT_CTYPES, ROUNDINGS
 from affix.emit import ARITHS, LANGUAGES, STYLES
 from affix.interface import COEFFICIENT_SOURCES
+from affix.targets import DEFAULT_TARGET, TARGETS
 
 
 class KeyProblem(Exception):
@@ -161,6 +162,10 @@ SCHEMA = Table(
                 "coef_bits": Key(choice(COEF_BITS), "coefficient width (default: searched)"),
                 "acc_bits": Key(choice(ACC_BITS), "accumulator width (default: searched)"),
                 "output_type": Key(choice(tuple(OUTPUT_CTYPES)), "output C type (default: searched)"),
+                "input_type": Key(choice(tuple(INPUT_CTYPES)), "C type of every input (default: the smallest "
+                                  "holding the box, unsigned where it can)"),
+                "target": Key(choice(tuple(TARGETS)), "the core or runtime the widths are chosen for",
+                              default=DEFAULT_TARGET),
                 "rounding": Key(choice(ROUNDINGS), "output rounding", default="nearest"),
                 "coefficient_search": Key(boolean, "error-feedback search of the integer coefficients; false rounds "
                                           "each on its own", default=True),
@@ -188,7 +193,10 @@ SCHEMA = Table(
         ),
         "build": Table(
             doc="the build",
-            keys={"out": Key(text, "the build folder, relative to the project file", default="build")},
+            keys={
+                "out": Key(text, "the build folder, relative to the project file", default="build"),
+                "report": Key(boolean, "write report.html (needs matplotlib, the report extra)", default=True),
+            },
         ),
     },
 )

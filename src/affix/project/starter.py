@@ -63,6 +63,8 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
         coef_bits=options["coef_bits"],
         acc_bits=options["acc_bits"],
         output_type=options["output_ctype"],
+        input_type=options["input_ctype"],
+        target=options["target"],
         rounding=options["rounding"],
         coefficient_search=options["search"],
         budget_rms_percent=options["budget_rms"],

@@ -78,6 +78,16 @@ def measurement_vectors(input_ranges, count: int = COUNTED_VECTORS, seed: int = 
     return np.vstack([np.array(corners).reshape(-1, len(lo)), inside])
 
 
+def figures_text(figures: dict) -> str:
+    """The figures of :func:`target_figures` as one line."""
+    counted, cycles = figures["instructions_per_evaluation"], figures["cycles_per_evaluation"]
+    instructions = "" if counted is None else f"{counted:.0f} instructions per evaluation (emulated), "
+    if cycles is not None:
+        instructions = f"{cycles:.0f} cycles per evaluation (simavr), "
+    return (f"{figures['target']}: {instructions}flash {figures['flash_bytes']} bytes, stack {figures['stack_bytes']} "
+            f"bytes ({figures['compiler']} -O2)")
+
+
 def target_figures(emit_dir, target) -> dict:
     """Instructions (or AVR cycles) per evaluation, flash and stack of the estimator in ``emit_dir``
     (a folder holding one manifest, or a manifest file) on ``target``.

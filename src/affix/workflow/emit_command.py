@@ -51,15 +51,9 @@ def run(args) -> int:
 
 def figures_line(emit_dir, target) -> str:
     """One line of what the estimator costs on its target, or why that could not be measured."""
-    from affix.targets.figures import target_figures
+    from affix.targets.figures import figures_text, target_figures
 
     try:
-        figures = target_figures(emit_dir, target)
+        return figures_text(target_figures(emit_dir, target))
     except ToolError as exc:
         return f"{target}: no figures ({exc.message})"
-    counted, cycles = figures["instructions_per_evaluation"], figures["cycles_per_evaluation"]
-    instructions = "" if counted is None else f"{counted:.0f} instructions per evaluation (emulated), "
-    if cycles is not None:
-        instructions = f"{cycles:.0f} cycles per evaluation (simavr), "
-    return (f"{target}: {instructions}flash {figures['flash_bytes']} bytes, stack {figures['stack_bytes']} bytes "
-            f"({figures['compiler']} -O2)")
