@@ -64,10 +64,12 @@ def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: b
 
 
 def read_files(paths, columns, *, drop_invalid: bool = False):
-    """The chosen columns of several files, one after the other, as one iterable of float64 chunks.
+    """The chosen columns of several files, one after the other, as one iterable of float64 chunks
+    (a single file's own ChunkStream, whose ``path`` messages can name).
 
     Every file and its column names are checked here, before any row is read."""
-    return itertools.chain.from_iterable([read_chunks(path, columns, drop_invalid=drop_invalid) for path in paths])
+    streams = [read_chunks(path, columns, drop_invalid=drop_invalid) for path in paths]
+    return streams[0] if len(streams) == 1 else itertools.chain.from_iterable(streams)
 
 
 def splittable(path) -> bool:

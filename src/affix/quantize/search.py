@@ -17,7 +17,7 @@ from dataclasses import dataclass, replace
 from itertools import product
 
 from affix.arithmetic import COEF_BITS, OUTPUT_CTYPES
-from affix.errors import BudgetError, NoConfigurationError
+from affix.errors import BudgetError, NoConfigurationError, UsageError
 from affix.quantize.analysis import Accuracy, Problem, accuracy
 from affix.quantize.box import reach
 from affix.quantize.budget import WORST_CASE, Budget
