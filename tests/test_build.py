@@ -49,9 +49,9 @@ def test_a_build_runs_every_step_and_records_what_it_was_made_from(tmp_path):
     assert record["project"] == "../affix.toml"  # relative to the build folder
     assert record["data"] == [{"path": "colour.csv",
                                "sha256": hashlib.sha256((tmp_path / "colour.csv").read_bytes()).hexdigest()}]
-    # The default target is the host: its figures measured on the emulated x86-64 core, numbers only.
+    # The default target is the host: its figures measured on the emulated x86-64 core.
     assert record["target"] == "host" and record["target_figures"]["flash_bytes"] > 0
-    assert all(isinstance(v, (int, float)) for v in record["target_figures"].values())
+    assert record["target_figures"]["instructions_per_evaluation"] > 0
     assert [s["step"] for s in record["steps"]] == ["fit", "quantize", "emit", "verify", "report"]
     # Every other file of the folder, with its hash.
     files = snapshot(out)

@@ -249,8 +249,7 @@ def _measure(staged, target, result, progress, warn) -> None:
         warn(f"{target}: no figures ({exc.message})")
         return
     progress(f"{'':10}{figures_text(figures)}")
-    result.target_figures = {key: value for key, value in figures.items()
-                             if isinstance(value, (int, float)) and not isinstance(value, bool)}
+    result.target_figures = figures
 
 
 def _report(project, model, interface, out, staged, result, progress, warn) -> None:
