@@ -265,7 +265,7 @@ def _report(project, model, interface, out, staged, result, progress, warn) -> N
     from affix.report import REPORT_FILE, render_report
 
     record = _record(project, model, interface, out, staged, result)  # all but the report's own hash
-    staged.write_text(REPORT_FILE, render_report(staged.staging, record=record, home=out))
+    staged.write_text(REPORT_FILE, render_report(staged.staging, record=record, location=out))
     _step(result, progress, "report", REPORT_FILE)
 
 
