@@ -28,8 +28,10 @@ BOARD_PLAN, BOARD = "wrist_plan_micropython.json", "micropython"
 # run's log, the build folder and the first build kept for comparison.
 PROJECT, INTERFACE, RECALIBRATION = "affix.toml", f"{ESTIMATOR}.interface.json", "wrist_recalibration.csv"
 BUILD, FIRST_BUILD = "build", "build-first"
-# The declared box: the rated wrench reaches about +-20000 counts on each
-# bridge, and the thermistor reads 1500..3000 between 11 and 49 degC.
+# The stage commands plan for the ADCs' whole range; the project declares the
+# box the sensor is rated for: the rated wrench reaches about +-20000 counts
+# on each bridge, and the thermistor reads 1500..3000 between 11 and 49 degC.
+ADC_RANGES = ("-32768:32767", "therm=0:4095")
 RANGES = ("-22000:22000", "therm=1500:3000")
 
 
@@ -81,7 +83,8 @@ def _steps(staged) -> None:
     for name in (MODEL, PLAN, FIRMWARE, BOARD_PLAN, BOARD, PROJECT, INTERFACE, BUILD, FIRST_BUILD):
         staged.entry(name)
     columns = ["--inputs", ",".join(demo_scenario.INPUTS), "--outputs", ",".join(demo_scenario.OUTPUTS)]
-    box = [f"--range={r}" for r in RANGES] + ["--output-type", "int16_t"]
+    box = [f"--range={r}" for r in ADC_RANGES] + ["--output-type", "int16_t"]
+    rated = [f"--range={r}" for r in RANGES] + ["--output-type", "int16_t"]
     budget = ["--budget", ",".join(f"{k}={v}" for k, v in BUDGET.items())]
     number = _run(main, 2, [
         ("fit counts to wrench", ["fit", DATA, *columns, "--out", MODEL]),
@@ -96,8 +99,8 @@ def _steps(staged) -> None:
         ("emit MicroPython, with its allocation-free viper variant",
          ["emit", BOARD_PLAN, "--lang", "micropython", "--name", ESTIMATOR, "--out", BOARD]),
         ("verify it bit for bit in the MicroPython runtime", ["verify", BOARD, "--data", DATA]),
-        (f"the {CORE} job as one project file, for the recalibrations to come",
-         ["init", DATA, *columns, "--name", ESTIMATOR, *box, *budget, "--target", CORE, "--lang", "c"]),
+        (f"the {CORE} job as one project file for the recalibrations to come, its box the sensor's rated range",
+         ["init", DATA, *columns, "--name", ESTIMATOR, *rated, *budget, "--target", CORE, "--lang", "c"]),
         (f"build it: fit, quantize, emit, verify into {BUILD}/, pinning the interface in {INTERFACE}",
          ["build"]),
     ])
