@@ -198,9 +198,35 @@ def _shown(value) -> str:
 # --- the interface file's schema -------------------------------------------------
 
 
-def _range_is_ordered(values) -> None:
-    if values["range"][0] > values["range"][1]:
-        schema.fail("range", "is inverted (lo > hi)")
+def _ranges_are_ordered(values) -> None:
+    for k, port in enumerate(values["inputs"]):
+        if port["range"][0] > port["range"][1]:
+            schema.fail(f"inputs[{k}].range", "is inverted (lo > hi)")
+
+
+def agrees_with_manifest(values) -> None:
+    """A manifest's rule: the interface it holds is the one its own fields describe, fingerprint included."""
+    if "interface" not in values:
+        return
+    data = json.loads(json.dumps(values["interface"]))
+    stated = data.pop("interface_id")
+    del data["format"]
+    interface = Interface(**{key: tuple(v) if key in ("inputs", "outputs") else v for key, v in data.items()})
+    if stated != interface.id:
+        schema.fail("interface", f"its interface_id {stated} is not the fingerprint of its content ({interface.id})")
+    integer = values["arith"] == "int"
+    pairs = (
+        ("inputs", [p["name"] for p in interface.inputs], list(values["inputs"])),
+        ("input_ranges", [p["range"] for p in interface.inputs], [list(r) for r in values["input_ranges"]]),
+        ("input_ctype", interface.input_ctype, values["input_ctype"]),
+        ("outputs", [p["name"] for p in interface.outputs], list(values["outputs"])),
+        ("output_lsb", [p["lsb"] for p in interface.outputs],
+         list(values["output_lsb"]) if integer else [None] * len(values["outputs"])),
+        ("output_ctype", interface.output_ctype, values["output_ctype"] if integer else "float"),
+    )
+    for key, described, stated_here in pairs:
+        if described != stated_here:
+            schema.fail("interface", f"disagrees with the manifest's field '{key}'")
 
 
 _LSB = schema.OrNone(schema.Number(positive=True))
@@ -217,8 +243,7 @@ INTERFACE_FIELDS = (
         schema.Field("name", schema.Text(min_length=1)),
         schema.Field("range", schema.List(schema.Integer(-(2**32), 2**32), length=2)),
         schema.Field("lsb", _LSB),
-        schema.Field("unit", _UNIT),
-        rules=(_range_is_ordered,)), min_length=1)),
+        schema.Field("unit", _UNIT)), min_length=1)),
     schema.Field("outputs", schema.List(schema.Record(
         schema.Field("name", schema.Text(min_length=1)),
         schema.Field("lsb", _LSB),
@@ -236,6 +261,6 @@ INTERFACE_FIELDS = (
         schema.Field("functions", schema.List(_IDENTIFIER, unique=True)),
         schema.Field("constants", schema.List(_IDENTIFIER, unique=True))))),
 )
-INTERFACE_SCHEMA = schema.Schema("interface", INTERFACE_FORMAT, *INTERFACE_FIELDS)
+INTERFACE_SCHEMA = schema.Schema("interface", INTERFACE_FORMAT, *INTERFACE_FIELDS, rules=(_ranges_are_ordered,))
 # The same, as a field of another file (the manifest holds the interface it emitted).
 INTERFACE_RECORD = schema.Record(schema.Field("format", schema.Choice((INTERFACE_FORMAT,))), *INTERFACE_FIELDS)

@@ -16,7 +16,7 @@ from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, MANIFEST_SUFFIX, STYL
 from affix.emit.names import check_names
 from affix.errors import UsageError
 from affix.float32_arithmetic import FLOAT32_MAX
-from affix.interface import INTERFACE_RECORD
+from affix.interface import INTERFACE_RECORD, agrees_with_manifest
 from affix.plan import INTEGER_CONTRACT, prove_integer_contract
 
 # The files each language writes, by estimator name.
@@ -118,5 +118,5 @@ MANIFEST_SCHEMA = schema.Schema(
     # The firmware interface the files carry the fingerprint of (affix.interface); manifests of an
     # affix before it lack it.
     schema.Field("interface", INTERFACE_RECORD, default=schema.OMITTED),
-    rules=(_names_are_emittable, prove_integer_contract, _files_agree, _types_agree),
+    rules=(_names_are_emittable, prove_integer_contract, _files_agree, _types_agree, agrees_with_manifest),
 )
