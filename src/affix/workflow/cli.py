@@ -53,6 +53,7 @@ PARAMETER_ARGUMENTS = {
 # ends quietly with the status a shell reports for a process that SIGPIPE
 # ended: 128 + 13.
 BROKEN_PIPE_STATUS = 128 + 13
+INTERRUPTED, INTERRUPTED_STATUS = "affix: interrupted", 128 + 2  # the shell's status for SIGINT
 
 
 class OneLineParser(argparse.ArgumentParser):
@@ -108,6 +109,9 @@ def main(argv: list[str] | None = None) -> int:
         except SystemExit as exc:  # argparse's --help, --version and usage mistakes
             status = exc.code if isinstance(exc.code, int) else 0 if exc.code is None else 2
         sys.stdout.flush()
+    except KeyboardInterrupt:  # in the command, and also while parsing or flushing what it printed
+        print(INTERRUPTED, file=sys.stderr)
+        return INTERRUPTED_STATUS
     except BrokenPipeError:
         # Whoever read stdout has gone: send what is left to nowhere, so the
         # interpreter's final flush cannot fail again with a traceback.
@@ -132,9 +136,6 @@ def _run(argv: list[str]) -> int:
     except AffixError as exc:
         print(exc.format_message(spell), file=sys.stderr)
         return exc.exit_code
-    except KeyboardInterrupt:
-        print("affix: interrupted", file=sys.stderr)
-        return 130
 
 
 def _paths(args, dests) -> list:
