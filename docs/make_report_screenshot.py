@@ -1,9 +1,8 @@
 """Make docs/report_screenshot.png, the README's picture of the demo's build report.
 
-The demo's calibration scenario goes through the stage functions into a build
-folder (tests/build_folder.py, until 'affix build' makes it), 'affix report'
-writes the page, and the same headless Chromium the tests use takes the
-picture at desktop width:
+'affix build' turns the demo's calibration scenario into a build folder
+(tests/build_folder.py), which holds the report it wrote, and the same
+headless Chromium the tests use takes the picture at desktop width:
 
     .venv/bin/python docs/make_report_screenshot.py
 """
@@ -22,8 +21,6 @@ from browser import visit  # noqa: E402
 from build_folder import make_build_folder  # noqa: E402
 from PIL import Image  # noqa: E402
 
-from affix.report import write_report  # noqa: E402
-
 WIDTH, HEIGHT = 1366, 2300  # the page's top: masthead, verdicts, what it is made of, budget, deviation
 
 
@@ -32,7 +29,7 @@ def main() -> None:
     if chromium is None:
         sys.exit("needs chromium (Debian package 'chromium')")
     with tempfile.TemporaryDirectory(prefix="affix-screenshot-") as tmp:
-        page = write_report(make_build_folder(tmp))
+        page = make_build_folder(tmp) / "report.html"
         seen = visit(chromium, page, width=WIDTH, height=HEIGHT, full_page=False)
     picture = Image.open(io.BytesIO(seen.screenshot)).convert("RGB")
     # 256 colours: the page is flat colour and text, so the picture stays small and sharp.

@@ -1,69 +1,53 @@
-"""Build folders for the report tests, made by the stage functions.
+"""Build folders for the report tests, made by ``affix build`` from a project file.
 
-Until ``affix build`` exists this helper stands in for it, writing the layout
-of DEVELOPERS.md ("The build folder"): model.json, plan.json, the emitted
-sources and manifest, verification.json and build.json (format
-affix.build/1), beside a project folder holding the calibration data.
-When ``affix build`` lands, ``make_build_folder`` becomes a call to it.
+The project holds the demo's wrist-sensor scenario (affix.workflow.demo_scenario):
+root/project/{affix.toml, DATA_FILE} and the build folder root/project/build,
+whose report.html the build itself writes.
 """
 from __future__ import annotations
 
-import hashlib
 import json
 from pathlib import Path
 
-import affix
-from affix import __version__
-from affix.emit.writer import emit
-from affix.intake import read_chunks
-from affix.quantize import plan_fixed_point
-from affix.verify.check import verify
 from affix.workflow import demo_scenario
 
 NAME = "wrist_ft"
 BUDGET = {"Fx": 0.05, "Fy": 0.05, "Fz": 0.1, "Tx": 0.003, "Ty": 0.003, "Tz": 0.002}
-RANGES = {None: (-32768, 32767), "therm": (0, 4095)}
+RANGES = {name: (-32768, 32767) for name in demo_scenario.BRIDGES} | {"therm": (0, 4095)}
 DATA_FILE = "wrist_calibration.csv"
 
 
 def sha256(path) -> str:
-    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+    from affix import files
+
+    return files.file_sha256(path)
 
 
 def make_build_folder(root, *, rows: int = demo_scenario.ROWS, lang: str = "all", vectors: int = 10**4,
                       target_figures: dict | None = None) -> Path:
-    """root/project/{affix.toml, DATA_FILE} and the build folder root/project/build, which it returns."""
+    """Run ``affix build`` on the demo scenario under ``root``; the build folder.
+
+    ``target_figures`` stands in for a target's measured figures (numbers, texts and None, as
+    affix.targets gives them), written into build.json after the build, so a test needs no cross tools.
+    """
+    from affix.project import load_project
+    from affix.project.build import build_project
+
     project = Path(root) / "project"
-    build = project / "build"
-    build.mkdir(parents=True)
+    project.mkdir(parents=True)
     data = project / DATA_FILE
-    if not data.exists():
-        demo_scenario.write_csv(data, rows=rows)
-    (project / "affix.toml").write_text(f'# the project file of this test build\nname = "{NAME}"\n')
-    model = affix.fit(data, inputs=demo_scenario.INPUTS, outputs=demo_scenario.OUTPUTS)
-    model.save(build / "model.json")
-    plan = plan_fixed_point(model, RANGES, output_ctype="int16_t", budget=BUDGET,
-                            calibration=read_chunks(data, demo_scenario.INPUTS))
-    plan.save(build / "plan.json")
-    emit(plan, lang=lang, name=NAME, out_dir=build)
-    report = verify(build, vectors=vectors, data=data, micropython_vectors=200)
-    (build / "verification.json").write_text(json.dumps(report.to_dict(), indent=2) + "\n")
-    write_build_json(build, target_figures=target_figures)
+    demo_scenario.write_csv(data, rows=rows)
+    inputs = "".join(f'\n[[inputs]]\nname = "{name}"\nrange = [{lo}, {hi}]\n' for name, (lo, hi) in RANGES.items())
+    outputs = "".join(f'\n[[outputs]]\nname = "{name}"\nbudget = {limit}\n' for name, limit in BUDGET.items())
+    languages = ", ".join(f'"{lang}"' for lang in (("c", "micropython") if lang == "all" else (lang,)))
+    (project / "affix.toml").write_text(
+        f'name = "{NAME}"\n\n[data]\nfiles = "{DATA_FILE}"\n{inputs}{outputs}\n[fixed_point]\noutput_type = "int16_t"\n'
+        f"\n[emit]\nlanguages = [{languages}]\n\n[verify]\nvectors = {vectors}\n"
+    )
+    build_project(load_project(project / "affix.toml"))
+    build = project / "build"
+    if target_figures is not None:
+        record = json.loads((build / "build.json").read_text())
+        record["target_figures"] = target_figures
+        (build / "build.json").write_text(json.dumps(record, indent=2) + "\n")
     return build
-
-
-def write_build_json(build: Path, *, target=None, target_figures=None, data_files=(DATA_FILE,)) -> None:
-    files = {p.name: sha256(p) for p in sorted(build.iterdir()) if p.is_file() and p.name != "build.json"}
-    content = {
-        "format": "affix.build/1",
-        "tool_version": __version__,
-        "name": NAME,
-        "project": "../affix.toml",
-        "data": [{"path": name, "sha256": sha256(build.parent / name)} for name in data_files],
-        "interface_id": "if1-" + sha256(build / f"{NAME}.manifest.json")[:16],
-        "target": target,
-        "target_figures": target_figures,
-        "steps": ["fit", "quantize", "emit", "verify"],
-        "files": files,
-    }
-    (build / "build.json").write_text(json.dumps(content, indent=2) + "\n")
