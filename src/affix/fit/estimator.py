@@ -17,12 +17,12 @@ import numpy as np
 from affix.errors import DataError, FitError, UsageError, parameter
 from affix.fit import conditioning
 from affix.fit.adopt import adopt, default_names, is_fitted_linear
-from affix.fit.passes import file_moments, stream_moments
+from affix.fit.passes import file_moments, merge_parts, stream_moments
 from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
 from affix.intake import from_array
 from affix.intake.digest import combined
 from affix.model import Model
-from affix.statistics import MAX_FOLDS, merge_all, merge_folds
+from affix.statistics import MAX_FOLDS, merge_all
 
 
 # Below this magnitude a value's square underflows to zero or loses digits
@@ -65,22 +65,38 @@ def fit(
     """
     if is_fitted_linear(data):
         return adopt(data, inputs, outputs)
+    folds = check_arguments(ridge, folds)
+    inputs, outputs, paths, values = _open(data, inputs, outputs)
+    width = len(inputs) + len(outputs)
+    if paths is not None:
+        parts, dropped, sha256 = files_moments(paths, inputs + outputs, folds, chunk_rows, drop_invalid)
+    else:
+        stream = from_array(values, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
+        parts, dropped, sha256 = stream_moments(stream, width, folds), stream.rows_dropped, None
+    return model_from_parts(parts, inputs, outputs, ridge=ridge, folds=folds, data_sha256=sha256, dropped_rows=dropped,
+                            path=paths[0] if paths and len(paths) == 1 else None)
+
+
+def check_arguments(ridge, folds) -> int:
+    """The fit's ``ridge`` and ``folds`` checked; the number of folds."""
     if not (isinstance(ridge, (int, float)) and math.isfinite(ridge) and ridge >= 0):
         raise UsageError(f"must be a finite number >= 0, got {ridge!r}", parameter="ridge")
     if isinstance(folds, bool) or not isinstance(folds, numbers.Integral) or not (folds == 0 or 2 <= folds <= MAX_FOLDS):
         raise UsageError(
             f"must be 0 (no cross-validation) or a whole number from 2 to {MAX_FOLDS}, got {folds!r}", parameter="folds"
         )
-    folds = int(folds)
-    inputs, outputs, paths, values = _open(data, inputs, outputs)
+    return int(folds)
+
+
+def model_from_parts(parts, inputs, outputs, *, ridge, folds, data_sha256, dropped_rows, path=None) -> Model:
+    """The Model from per-fold moments of [inputs, outputs] (one part when ``folds`` < 2).
+
+    Raises DataError for too few rows or a constant input, FitError for a
+    singular fit or cross-validation; ``path`` is what a DataError names.
+    Warns CollinearityWarning above the conditioning limit."""
     m, width = len(inputs), len(inputs) + len(outputs)
-    if paths is not None:
-        parts, dropped, sha256 = _files_moments(paths, inputs + outputs, folds, chunk_rows, drop_invalid)
-    else:
-        stream = from_array(values, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
-        parts, dropped, sha256 = stream_moments(stream, width, folds), stream.rows_dropped, None
     moments = merge_all(parts, width)
-    _check_rows(moments, inputs, inputs + outputs, paths[0] if paths and len(paths) == 1 else None)
+    _check_rows(moments, inputs, inputs + outputs, path)
     r = correlation(moments, m)
     condition = conditioning.condition_number(r)
     solution = _solve(moments, m, ridge, r, condition, inputs)
@@ -105,17 +121,19 @@ def fit(
         ridge=float(ridge),
         folds=folds,
         condition_number=condition if math.isfinite(condition) else None,
-        data_sha256=sha256,
-        dropped_rows=dropped,
+        data_sha256=data_sha256,
+        dropped_rows=dropped_rows,
     )
 
 
-def _files_moments(paths, columns, folds, chunk_rows, drop_invalid):
-    """Per-fold moments of several files as one data set; each file's rows are dealt to the folds from its first."""
+def files_moments(paths, columns, folds, chunk_rows, drop_invalid, labels=None):
+    """Per-fold moments of several files as one data set (UnitMoments with a unit column ``labels``):
+    (parts, rows dropped, data_sha256).  Each file's rows are dealt to the folds from its first."""
     parts, dropped, digests = None, 0, []
     for path in paths:
-        more, count, sha256 = file_moments(path, columns, folds, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
-        parts = more if parts is None else merge_folds(parts, more)
+        more, count, sha256 = file_moments(path, columns, folds, chunk_rows=chunk_rows, drop_invalid=drop_invalid,
+                                           labels=labels)
+        parts = more if parts is None else merge_parts(parts, more)
         dropped += count
         digests.append(sha256)
     return parts, dropped, combined(digests)
@@ -127,11 +145,11 @@ def _open(data, inputs, outputs):
         if inputs is None or outputs is None:
             raise UsageError("fitting a file needs the names of its input and output columns")
         paths = [data] if isinstance(data, (str, os.PathLike)) else list(data)
-        return (*_check_names(inputs, outputs), paths, None)
+        return (*check_names(inputs, outputs), paths, None)
     if isinstance(data, Mapping) or hasattr(data, "columns"):
         if inputs is None or outputs is None:
             raise UsageError("fitting named columns needs the names of the input and output columns")
-        inputs, outputs = _check_names(inputs, outputs)
+        inputs, outputs = check_names(inputs, outputs)
         missing = [name for name in inputs + outputs if name not in data]
         if missing:
             raise DataError(f"no column '{missing[0]}' (available: {', '.join(map(str, data.keys()))})")
@@ -143,7 +161,7 @@ def _open(data, inputs, outputs):
             raise DataError(f"the inputs have {len(y)} rows but the outputs {len(x)}")
         inputs = default_names("y", y.shape[1]) if inputs is None else inputs
         outputs = default_names("x", x.shape[1]) if outputs is None else outputs
-        inputs, outputs = _check_names(inputs, outputs)
+        inputs, outputs = check_names(inputs, outputs)
         if (len(inputs), len(outputs)) != (y.shape[1], x.shape[1]):
             raise UsageError(
                 f"{len(inputs)} input and {len(outputs)} output names for arrays of "
@@ -159,7 +177,8 @@ def _is_path_list(data) -> bool:
     return isinstance(data, (list, tuple)) and bool(data) and all(isinstance(p, (str, os.PathLike)) for p in data)
 
 
-def _check_names(inputs, outputs):
+def check_names(inputs, outputs):
+    """The input and output column names as text, checked: at least one each, none twice, none in both."""
     inputs, outputs = [str(n) for n in inputs], [str(n) for n in outputs]
     if not inputs or not outputs:
         raise UsageError("name at least one input and one output column")

@@ -18,7 +18,7 @@ from affix.errors import AffixError
 from affix.intake import partition, read_chunks, splittable
 from affix.intake.digest import FileDigest
 from affix.intake.stream import check_invalid
-from affix.statistics import accumulate, merge_folds
+from affix.statistics import UnitMoments, accumulate, accumulate_units, merge_folds
 
 PARALLEL_MIN_BYTES = 32 << 20  # below this, starting processes costs more than it saves
 
@@ -27,10 +27,11 @@ def usable_cpus() -> int:
     return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
 
 
-def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None):
+def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None, labels=None):
     """Per-fold moments of the chosen columns and what the pass found:
-    (parts, rows_dropped, sha256).  Raises DataError for invalid rows unless drop_invalid."""
-    stream = read_chunks(path, columns, chunk_rows=chunk_rows, drop_invalid=drop_invalid)  # checks names first
+    (parts, rows_dropped, sha256).  Raises DataError for invalid rows unless drop_invalid.
+    With ``labels`` (the unit column) the parts are UnitMoments, per unit and fold."""
+    stream = read_chunks(path, columns, chunk_rows=chunk_rows, drop_invalid=drop_invalid, labels=labels)  # checks names first
     if workers is None:
         workers = usable_cpus() if os.path.getsize(path) >= PARALLEL_MIN_BYTES else 1
     if workers == 1 or not splittable(path):
@@ -40,11 +41,11 @@ def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None
     digest = FileDigest(path)
     ranges = partition(path, workers)
     digest.wait()
-    results = _in_workers([(path, columns, folds, chunk_rows, part) for part in ranges])
+    results = _in_workers([(path, columns, folds, chunk_rows, part, labels) for part in ranges])
     sha256 = digest.hexdigest()  # after the workers' reads: it checks that the file did not change meanwhile
     parts, dropped, first_invalid = results[0]
     for more, count, first in results[1:]:
-        parts, dropped = merge_folds(parts, more), dropped + count
+        parts, dropped = merge_parts(parts, more), dropped + count
         first_invalid = first_invalid or first
     if not drop_invalid:
         check_invalid(path, dropped, first_invalid)
@@ -106,15 +107,22 @@ def _worker(send, job):
         send.send((False, RuntimeError("in a worker process:\n" + "".join(traceback.format_exception(exc)))))
 
 
-def _part_moments(path, columns, folds, chunk_rows, part):
-    stream = read_chunks(path, columns, chunk_rows=chunk_rows, drop_invalid=True, part=part)
+def _part_moments(path, columns, folds, chunk_rows, part, labels):
+    stream = read_chunks(path, columns, chunk_rows=chunk_rows, drop_invalid=True, part=part, labels=labels)
     return stream_moments(stream, len(columns), folds), stream.rows_dropped, stream.first_invalid
 
 
 def stream_moments(stream, width, folds):
-    """Per-fold moments of one ChunkStream."""
+    """Per-fold moments of one ChunkStream; UnitMoments for a stream with a unit column."""
     # The products here are skinny (rows x a few columns): one BLAS thread
     # does them at memory speed, and more would spin against the threads that
     # parse and hash the file, which on a small machine costs many times over.
     with threadpool_limits(limits=1, user_api="blas"):
+        if stream.label_column is not None:
+            return accumulate_units(stream, width, folds)
         return accumulate(stream, width, folds, first_row=stream.first_row)
+
+
+def merge_parts(a, b):
+    """Two passes' results merged: per-fold lists of Moments, or UnitMoments."""
+    return a.merge(b) if isinstance(a, UnitMoments) else merge_folds(a, b)

@@ -33,7 +33,8 @@ def column_names(path) -> list[str]:
     return _format(path).column_names(path)
 
 
-def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False, part=None) -> ChunkStream:
+def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False, part=None,
+                labels: str | None = None) -> ChunkStream:
     """The chosen columns of the file as one pass of float64 chunks (see ChunkStream).
 
     Chunks hold at most ``chunk_rows`` rows; by default as many as the format
@@ -42,33 +43,42 @@ def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: b
     Missing files and columns, ambiguous names and unreadable headers are
     reported here, before any row is read; cell-level problems during the pass.
     ``part``, one of :func:`partition`'s ranges, reads only that part of the
-    file (without the digest, which covers whole files).
+    file (without the digest, which covers whole files).  ``labels`` names a
+    column of unit ids: the stream then yields labelled chunks (see ChunkStream).
     """
     path = _existing(path)
     columns = list(columns)
     fmt = _format(path)
     available = fmt.column_names(path)
-    for name in columns:
+    for name in columns + ([] if labels is None else [labels]):
         count = available.count(name)
         if not count:
             raise DataError(f"no column '{name}' (available: {_listing(available)})", path)
         if count > 1:
             raise DataError(f"the header names column '{name}' {count} times, so it is ambiguous", path)
+    if labels is not None and labels in columns:
+        raise UsageError(f"the unit column '{labels}' cannot also be an input or output", parameter="unit_column")
     chunk_rows = _chunk_rows(chunk_rows, fmt.CHUNK_ROWS)
     first_line = csv_format.FIRST_DATA_LINE if fmt is csv_format else None
-    if part is None:
-        return ChunkStream(path, columns, fmt.raw_chunks(path, columns, chunk_rows), drop_invalid, first_line=first_line)
-    first_row = csv_format.rows_before(path, part[0])
-    raw = csv_format.raw_chunks(path, columns, chunk_rows, byte_range=part, rows_skipped=first_row)
-    return ChunkStream(path, columns, raw, drop_invalid, first_row=first_row, digest=False, first_line=first_line)
+    first_row, options = 0, {}
+    if part is not None:
+        first_row = csv_format.rows_before(path, part[0])
+        options = {"first_row": first_row, "digest": False}
+    if fmt is csv_format:
+        raw = csv_format.raw_chunks(path, columns, chunk_rows, byte_range=part, rows_skipped=first_row, labels=labels)
+    elif labels is None:
+        raw = fmt.raw_chunks(path, columns, chunk_rows)
+    else:  # an array file's unit column is one more column of numbers, split off by the stream
+        raw = fmt.raw_chunks(path, columns + [labels], chunk_rows)
+    return ChunkStream(path, columns, raw, drop_invalid, first_line=first_line, label_column=labels, **options)
 
 
-def read_files(paths, columns, *, drop_invalid: bool = False):
+def read_files(paths, columns, *, drop_invalid: bool = False, labels: str | None = None):
     """The chosen columns of several files, one after the other, as one iterable of float64 chunks
-    (a single file's own ChunkStream, whose ``path`` messages can name).
+    (a single file's own ChunkStream, whose ``path`` messages can name); labelled chunks with ``labels``.
 
     Every file and its column names are checked here, before any row is read."""
-    streams = [read_chunks(path, columns, drop_invalid=drop_invalid) for path in paths]
+    streams = [read_chunks(path, columns, drop_invalid=drop_invalid, labels=labels) for path in paths]
     return streams[0] if len(streams) == 1 else itertools.chain.from_iterable(streams)
 
 
@@ -90,12 +100,23 @@ def partition(path, parts: int) -> list:
     return csv_format.partition(path, parts)
 
 
-def from_array(values, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False) -> ChunkStream:
-    """Rows already in memory (k, len(columns)) as the same kind of pass as a file gives."""
+def from_array(values, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False,
+               units=None) -> ChunkStream:
+    """Rows already in memory (k, len(columns)) as the same kind of pass as a file gives;
+    with ``units`` (k labels, text or integers), labelled chunks."""
     values = np.asarray(values, dtype=np.float64)
     chunk_rows = _chunk_rows(chunk_rows, array_format.CHUNK_ROWS)
-    slices = (values[start : start + chunk_rows] for start in range(0, len(values), chunk_rows))
-    return ChunkStream(None, columns, slices, drop_invalid)
+    starts = range(0, len(values), chunk_rows)
+    if units is None:
+        return ChunkStream(None, columns, (values[start : start + chunk_rows] for start in starts), drop_invalid)
+    units = np.asarray(units)
+    if units.shape != (len(values),):
+        raise UsageError(f"{len(values)} rows need as many unit labels, got {units.shape[0] if units.ndim else 0}",
+                         parameter="units")
+    if units.dtype.kind not in "iu":  # text; integers are turned into text by the stream
+        units = units.astype(object)
+    slices = ((values[start : start + chunk_rows], units[start : start + chunk_rows]) for start in starts)
+    return ChunkStream(None, columns, slices, drop_invalid, label_column="unit")
 
 
 def _chunk_rows(chunk_rows, default) -> int:

@@ -89,19 +89,23 @@ def rows_before(path, offset: int) -> int:
     return count
 
 
-def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0):
+def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0, labels=None):
     """Float64 arrays (k, len(columns)) in file order; NaN marks missing cells.
 
     ``byte_range`` (from :func:`partition`) reads only those lines, which
     follow ``rows_skipped`` data rows; by default all data lines.  Errors name
-    the line as an editor numbers it.
+    the line as an editor numbers it.  With ``labels`` (a column name, not
+    one of ``columns``), pairs (values, labels): that column's cells as text,
+    exactly as written (a unit id "0042" stays "0042"), NaN where empty.
     """
     import pandas as pd  # here, not at the top: only CSV needs it, and it is slow to import
 
     header = column_names(path)
     positions = [header.index(name) for name in columns]
+    label_position = None if labels is None else header.index(labels)
     used = sorted(set(positions))
     order = [used.index(p) for p in positions]
+    text = {} if label_position is None else {label_position: str}
     start, end = byte_range or (data_start(path), os.path.getsize(path))
     line = first_line = FIRST_DATA_LINE + rows_skipped
     if start >= end:
@@ -115,7 +119,8 @@ def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0):
             # blank line) is read as missing cells like any other, instead of
             # setting a smaller field count for the rows after it.
             names=range(len(header)),
-            usecols=used,
+            usecols=used if label_position is None else sorted({*used, label_position}),
+            dtype=text,
             chunksize=chunk_rows,
             keep_default_na=False,
             na_values=MISSING,
@@ -123,9 +128,14 @@ def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0):
             encoding="utf-8",
         ) as reader:
             for frame in reader:
+                label_cells = None
+                if label_position is not None:
+                    label_cells = frame.pop(label_position).to_numpy(dtype=object)
+                    frame = frame[used]
                 values = _numeric(frame, path, line, [header[p] for p in used])
                 line += len(values)
-                yield values if order == list(range(len(order))) else values[:, order]
+                values = values if order == list(range(len(order))) else values[:, order]
+                yield values if label_cells is None else (values, label_cells)
     except pd.errors.ParserError as exc:
         found = _PARSER_ROW.search(str(exc))
         if found:

@@ -31,10 +31,22 @@ class ChunkStream:
     (when it reads one part); ``first_line`` the line of the file's first data
     row (2 for a CSV, whose header is line 1), or None for sources without
     lines, whose rows are named by their number from 1.
+
+    With ``label_column`` (the unit column of a fleet log) each item is a
+    labelled chunk ``(values, units, rows)``: the float64 values, each row's
+    unit id as text (checked against :mod:`affix.unit_ids`; an empty one
+    makes the row invalid), and the rows' places in the file, as
+    :func:`affix.statistics.unit_shares` takes them: the index of the first
+    row (from 0) when they are consecutive, else an array of indices (rows
+    left out by ``drop_invalid`` keep their places, so folds never shift).
+    A raw item is then a pair (values, labels), or one array whose last
+    column holds the labels as numbers (array files).
     """
 
-    def __init__(self, path, columns, raw_chunks, drop_invalid=False, first_row=0, digest=True, first_line=None):
+    def __init__(self, path, columns, raw_chunks, drop_invalid=False, first_row=0, digest=True, first_line=None,
+                 label_column=None):
         self.path, self.columns, self.drop_invalid = path, list(columns), drop_invalid
+        self.label_column = label_column
         self.first_row, self.first_line = first_row, first_line
         self._raw = raw_chunks
         self._digest = digest and path is not None
@@ -53,23 +65,37 @@ class ChunkStream:
         hashing = self._raw if hasattr(self._raw, "hexdigest") else None
         digest = (hashing or FileDigest(self.path)) if self._digest else None
         for chunk in self._raw:
+            labels = None
+            if self.label_column is not None:
+                chunk, labels = chunk if isinstance(chunk, tuple) else (chunk[:, :-1], chunk[:, -1])
             count = len(chunk)
             # One BLAS sum of squares is finite and small unless some cell is
             # NaN, infinite or very large: a cheap screen before the row-by-row look.
             cells = chunk.ravel(order="K")
             with np.errstate(over="ignore", invalid="ignore"):
                 squares = float(np.dot(cells, cells))
+            valid = None
             if not squares <= LARGEST_VALUE**2:
-                chunk = self._screen(chunk)
+                valid = self._screen(chunk)
+            if labels is not None:
+                labels, valid = self._unit_labels(labels, valid)
+            first = self.first_row + self.rows_read
             self.rows_read += count
+            if valid is not None:
+                self._note_invalid(valid, first, chunk, labels)
+                chunk = chunk[valid]
             if len(chunk) and (self.drop_invalid or not self.rows_dropped):
-                yield chunk
+                if labels is None:
+                    yield chunk
+                else:  # what affix.statistics.unit_shares takes: rows placed by their index in the file
+                    yield chunk, labels if valid is None else labels[valid], first if valid is None else (
+                        first + np.flatnonzero(valid))
         self.sha256 = digest.hexdigest() if digest else None
         if not self.drop_invalid:
             check_invalid(self.path, self.rows_dropped, self.first_invalid)
 
     def _screen(self, chunk):
-        """The chunk's valid rows; notes the invalid ones, refuses values too large."""
+        """Which of the chunk's rows hold only finite values; refuses values too large."""
         finite = np.isfinite(chunk)
         large = finite & (np.abs(chunk) > LARGEST_VALUE)
         if large.any():
@@ -81,15 +107,53 @@ class ChunkStream:
                 column=self.columns[j],
                 **self.place(self.first_row + self.rows_read + int(i)),
             )
-        valid = finite.all(axis=1)
+        return finite.all(axis=1)
+
+    def _note_invalid(self, valid, first, chunk, labels) -> None:
+        """Counts the rows ``valid`` leaves out and notes the first, with the column at fault."""
         if valid.all():
-            return chunk
+            return
         if self.first_invalid is None:
             i = int(np.argmin(valid))
-            j = int(np.argmin(finite[i]))
-            self.first_invalid = (self.place(self.first_row + self.rows_read + i), self.columns[j])
+            finite = np.isfinite(chunk[i])
+            column = self.columns[int(np.argmin(finite))] if not finite.all() else self.label_column
+            self.first_invalid = (self.place(first + i), column)
         self.rows_dropped += int(np.count_nonzero(~valid))
-        return chunk[valid]
+
+    def _unit_labels(self, labels, valid):
+        """The unit ids as text and the rows that have one (an empty cell is a missing value);
+        an id that breaks the rule of affix.unit_ids is an error at its first row."""
+        import pandas as pd
+
+        from affix.unit_ids import unit_id_problem
+
+        labels = np.asarray(labels)
+        if labels.dtype.kind == "f":  # an array file's column: whole numbers only
+            present = np.isfinite(labels)
+            whole = present & (labels == np.floor(labels)) & (labels >= 0) & (labels < 2.0**53)
+            if (present & ~whole).any():
+                i = int(np.argmax(present & ~whole))
+                raise DataError(f"unit id {float(labels[i])!r} is not a whole number >= 0 (an array file's unit column "
+                                "holds integers)", self.path, column=self.label_column,
+                                **self.place(self.first_row + self.rows_read + i))
+            text = np.full(len(labels), None, dtype=object)
+            text[present] = labels[present].astype(np.int64).astype(str)
+            labels = text
+        elif labels.dtype.kind in "iu":
+            present = np.ones(len(labels), bool)
+            labels = labels.astype(str).astype(object)
+        else:
+            present = ~pd.isna(labels)
+        if not present.all():
+            valid = present if valid is None else valid & present
+        codes, uniques = pd.factorize(labels[present] if not present.all() else labels)
+        for code, label in enumerate(uniques):
+            problem = unit_id_problem(str(label))
+            if problem:
+                i = int(np.flatnonzero(present)[np.argmax(codes == code)])
+                raise DataError(problem, self.path, column=self.label_column,
+                                **self.place(self.first_row + self.rows_read + i))
+        return labels, valid
 
 
 def check_invalid(path, count: int, first_invalid) -> None:

@@ -53,6 +53,14 @@ def fold_of(first_row: int, count: int, folds: int, seed: int = FOLD_SEED) -> np
     return np.resize(pattern[offset : offset + period(folds)], count)
 
 
+def fold_labels(rows, count: int, folds: int, seed: int = FOLD_SEED) -> np.ndarray:
+    """Fold labels of ``count`` rows placed by ``rows``: the index of the first
+    (the rest consecutive), or an array of each row's index in its file."""
+    if np.ndim(rows) == 0:
+        return fold_of(int(rows), count, folds, seed)
+    return _pattern(folds, seed)[np.asarray(rows, dtype=np.int64) % period(folds)]
+
+
 @lru_cache(maxsize=64)
 def _fold_order(offset: int, count: int, folds: int, seed: int):
     """The order that groups rows offset .. offset+count-1 of the dealing

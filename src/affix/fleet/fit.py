@@ -1,0 +1,104 @@
+"""Every unit of a fleet log fitted from one pass over the data.
+
+The pass gathers moments per unit and fold (:mod:`affix.statistics.units`);
+each unit's model is then solved from its own moments exactly as
+:func:`affix.fit` solves a single data set, so a unit's model equals the
+model of its rows alone.  A unit that the data do not determine (too few
+rows, a constant input, a singular fit) is named with the reason; with
+``skip_bad_units`` the fleet goes on without it.
+"""
+from __future__ import annotations
+
+import warnings
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from affix.errors import AffixError, DataError, UsageError, parameter
+from affix.fit.estimator import check_arguments, check_names, files_moments, model_from_parts
+from affix.fit.passes import stream_moments
+from affix.intake import from_array
+from affix.model import Model
+from affix.unit_ids import case_clashes
+
+_NAMED = 5  # bad units a message names one by one before it counts the rest
+
+
+@dataclass
+class FleetFit:
+    """The units of a fleet log and their models.
+
+    ``units``: every unit id in the log, in fleet order (digits by value);
+    ``rows``: rows used per unit; ``models``: unit -> :class:`Model`, for
+    the units that could be fitted; ``rejected``: unit -> why it could not
+    be (only with ``skip_bad_units``); ``warnings``: one line per unit with
+    nearly collinear inputs; ``data_sha256`` and ``dropped_rows`` of the
+    whole log.
+    """
+
+    inputs: list[str]
+    outputs: list[str]
+    unit_column: str
+    units: tuple[str, ...]
+    rows: dict[str, int]
+    models: dict[str, Model]
+    rejected: dict[str, str] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+    data_sha256: str | None = None
+    dropped_rows: int = 0
+
+
+def fit_fleet(data, inputs, outputs, unit_column: str, *, ridge: float = 0.0, folds: int = 5,
+              drop_invalid: bool = False, skip_bad_units: bool = False, chunk_rows: int | None = None) -> FleetFit:
+    """Fit every unit of ``data``: a path or list of paths (as :func:`affix.fit`), or a mapping of
+    columns holding ``unit_column`` too.  Every other argument means what it means for
+    :func:`affix.fit`; a unit that cannot be fitted is an error naming it, unless ``skip_bad_units``."""
+    if not isinstance(unit_column, str) or not unit_column:
+        raise UsageError(f"must name the column of unit ids, got {unit_column!r}", parameter="unit_column")
+    folds = check_arguments(ridge, folds)
+    inputs, outputs = check_names(inputs, outputs)
+    if unit_column in inputs + outputs:
+        raise UsageError(f"the unit column '{unit_column}' cannot also be an input or output", parameter="unit_column")
+    columns = inputs + outputs
+    if isinstance(data, Mapping) or hasattr(data, "columns"):
+        missing = [name for name in columns + [unit_column] if name not in data]
+        if missing:
+            raise DataError(f"no column '{missing[0]}' (available: {', '.join(map(str, data.keys()))})")
+        values = np.column_stack([np.asarray(data[n], dtype=np.float64) for n in columns])
+        stream = from_array(values, columns, chunk_rows=chunk_rows, drop_invalid=drop_invalid,
+                            units=np.asarray(data[unit_column]))
+        parts, dropped, sha256, path = stream_moments(stream, len(columns), folds), stream.rows_dropped, None, None
+    else:
+        paths = [data] if isinstance(data, (str, bytes)) or hasattr(data, "__fspath__") else list(data)
+        parts, dropped, sha256 = files_moments(paths, columns, folds, chunk_rows, drop_invalid, labels=unit_column)
+        path = paths[0] if len(paths) == 1 else None
+    clash = case_clashes(parts.units)
+    if clash:
+        raise DataError(f"unit ids '{clash[0]}' and '{clash[1]}' differ only in case, so their record files would "
+                        "be one file on a case-insensitive file system; give the units distinct ids",
+                        path, column=unit_column)
+    if not parts.units:
+        raise DataError("no rows with a unit id", path, column=unit_column)
+    result = FleetFit(inputs, outputs, unit_column, parts.units, parts.rows(), {}, data_sha256=sha256,
+                      dropped_rows=dropped)
+    for unit in parts.units:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            try:
+                result.models[unit] = model_from_parts(parts.moments(unit), inputs, outputs, ridge=ridge,
+                                                       folds=folds, data_sha256=sha256, dropped_rows=0)
+            except AffixError as exc:
+                result.rejected[unit] = exc.marked
+        result.warnings += [f"unit {unit}: {w.message}" for w in caught]
+    if result.rejected and not skip_bad_units:
+        raise DataError(f"{bad_units_text(result.rejected)}; fix their data, or leave them out with "
+                        f"{parameter('skip_bad_units')}", path, column=unit_column)
+    return result
+
+
+def bad_units_text(rejected: dict[str, str]) -> str:
+    """The units that could not be fitted, with their reasons, for one message line."""
+    named = [f"unit {unit} ({reason})" for unit, reason in list(rejected.items())[:_NAMED]]
+    more = len(rejected) - _NAMED
+    return f"{len(rejected)} unit(s) cannot be fitted: " + "; ".join(named) + (f"; and {more} more" if more > 0 else "")

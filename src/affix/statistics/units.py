@@ -1,0 +1,207 @@
+"""Per-unit, per-fold moments of a fleet log, from the same single pass.
+
+A fleet log holds the calibration rows of many units, told apart by a unit
+column.  :func:`unit_shares` reduces one chunk of rows and their unit labels
+to :class:`UnitMoments`: one :class:`~affix.statistics.moments.Moments` per
+unit and fold, kept as stacked arrays so that thousands of units cost a few
+vectorised operations per block rather than a Python loop per unit.  Shares
+merge with the same pairwise update as Moments (Chan, Golub & LeVeque, 1979),
+per unit and fold, in any order, across chunks, files, processes and
+workers.
+
+A row's fold depends only on its index within its file (see
+:mod:`affix.statistics.folds`), never on its unit or on how the file was cut
+into chunks or partitions: a reader that splits files differently gives the
+same folds.  The units come out in one fixed order, by :func:`unit_order`
+of their labels, whatever order the shares were merged in.
+"""
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+
+import numpy as np
+
+from affix.statistics.folds import BLOCK_ROWS, FOLD_SEED, fold_labels
+from affix.statistics.moments import Moments
+
+# Below this many rows per (unit, fold) group on average, the scatter of
+# every group comes from one batched product of each row with itself rather
+# than one BLAS call per group (many units interleaved row by row).
+_ROWS_PER_CALL = 48
+
+
+def unit_order(label: str):
+    """Sort key of a unit label: its runs of digits by value, so "unit-9" comes before "unit-10"."""
+    return tuple((0, int(part), "") if part.isdigit() else (1, 0, part) for part in re.split(r"(\d+)", label) if part)
+
+
+@dataclass(frozen=True, eq=False)
+class UnitMoments:
+    """Moments per unit and fold.
+
+    ``units`` holds the labels, ``count`` (U, F), ``mean`` (U, F, d),
+    ``scatter`` (U, F, d, d), ``low`` and ``high`` (U, F, d): unit u's fold f
+    is ``moments(u)[f]``.  F is the number of folds (1 without
+    cross-validation); an empty fold has count 0, zero mean and scatter and
+    infinite extremes, like :meth:`Moments.empty`.
+    """
+
+    units: tuple[str, ...]
+    count: np.ndarray
+    mean: np.ndarray
+    scatter: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+
+    @classmethod
+    def empty(cls, width: int, folds: int, units=(), capacity: int | None = None) -> "UnitMoments":
+        """Empty moments for ``units`` (room for ``capacity`` units, for a store that grows)."""
+        size, parts = len(units) if capacity is None else capacity, max(folds, 1)
+        return cls(tuple(units), np.zeros((size, parts), np.int64), np.zeros((size, parts, width)),
+                   np.zeros((size, parts, width, width)), np.full((size, parts, width), np.inf),
+                   np.full((size, parts, width), -np.inf))
+
+    @property
+    def width(self) -> int:
+        return self.mean.shape[2]
+
+    @property
+    def folds(self) -> int:
+        return self.count.shape[1]
+
+    def moments(self, unit: str) -> list[Moments]:
+        """The unit's moments, one per fold."""
+        u = self.units.index(unit)
+        return [Moments(int(self.count[u, f]), self.mean[u, f], self.scatter[u, f], self.low[u, f], self.high[u, f])
+                for f in range(self.folds)]
+
+    def rows(self) -> dict[str, int]:
+        """Rows per unit."""
+        return dict(zip(self.units, self.count.sum(axis=1).tolist()))
+
+    def merge(self, other: "UnitMoments") -> "UnitMoments":
+        """Both sets of units, the moments of a unit in both merged fold by fold."""
+        if not other.units:
+            return self
+        if not self.units:
+            return other
+        units = tuple(sorted(set(self.units) | set(other.units), key=unit_order))
+        where = {label: k for k, label in enumerate(units)}
+        merged = UnitMoments.empty(self.width, self.folds, units)
+        for part in (self, other):
+            _merge_into(merged, np.array([where[label] for label in part.units], dtype=np.intp), part)
+        return merged
+
+
+def _arrays(moments: UnitMoments):
+    return moments.count, moments.mean, moments.scatter, moments.low, moments.high
+
+
+def _merge_into(target: UnitMoments, rows: np.ndarray, part: UnitMoments) -> None:
+    """target[rows] merged with part, in place (each unit of part at its row of target)."""
+    n_a = target.count[rows].astype(np.float64)
+    n_b = part.count.astype(np.float64)
+    n = n_a + n_b
+    safe = np.where(n > 0, n, 1.0)
+    delta = part.mean - target.mean[rows]
+    mean = target.mean[rows] + delta * (n_b / safe)[..., None]
+    weight = (n_a * n_b / safe)[..., None, None]
+    target.scatter[rows] += part.scatter + delta[..., :, None] * delta[..., None, :] * weight
+    target.mean[rows] = mean
+    target.count[rows] += part.count
+    target.low[rows] = np.minimum(target.low[rows], part.low)
+    target.high[rows] = np.maximum(target.high[rows], part.high)
+
+
+def unit_shares(chunk, units, rows, folds: int, seed: int = FOLD_SEED) -> UnitMoments:
+    """Per-unit, per-fold moments of ``chunk`` (k, d), whose row i belongs to unit ``units[i]``.
+
+    ``rows`` places the rows in their file: the index (from 0) of the first,
+    the rest following it; or an array of k indices, for rows that are not
+    consecutive (invalid rows left out).  ``folds`` <= 1 gives one part per
+    unit.  Each group of a unit's rows in one fold is shifted by its own first
+    row before its products are summed, which keeps the centred scatter
+    exact to rounding however large the values' offsets.
+    """
+    chunk = np.asarray(chunk, dtype=np.float64)
+    width, parts = chunk.shape[1], max(folds, 1)
+    if len(chunk) == 0:
+        return UnitMoments.empty(width, folds)
+    codes, labels = _codes(units, len(chunk))
+    fold = np.zeros(len(chunk), np.int64) if folds <= 1 else fold_labels(rows, len(chunk), folds, seed)
+    key = codes * parts + fold
+    order = np.argsort(key, kind="stable")
+    key = key[order]
+    starts = np.flatnonzero(np.r_[True, key[1:] != key[:-1]])
+    sizes = np.diff(np.r_[starts, len(key)])
+    grouped = np.take(chunk, order, axis=0) if chunk.flags.c_contiguous else chunk[order]
+    low, high = np.minimum.reduceat(grouped, starts, axis=0), np.maximum.reduceat(grouped, starts, axis=0)
+    shift = grouped[starts]
+    grouped -= np.repeat(shift, sizes, axis=0)
+    sums = np.add.reduceat(grouped, starts, axis=0)
+    if len(grouped) >= _ROWS_PER_CALL * len(starts):
+        products = np.stack([grouped[a:b].T @ grouped[a:b] for a, b in zip(starts, np.r_[starts[1:], len(grouped)])])
+    else:
+        products = np.add.reduceat(grouped[:, :, None] * grouped[:, None, :], starts, axis=0)
+    sizes_f = sizes.astype(np.float64)
+    group_mean = shift + sums / sizes_f[:, None]
+    group_scatter = products - sums[:, :, None] * sums[:, None, :] / sizes_f[:, None, None]
+    share = UnitMoments.empty(width, folds, labels)
+    unit_of, fold_of_group = np.divmod(key[starts], parts)
+    share.count[unit_of, fold_of_group] = sizes
+    share.mean[unit_of, fold_of_group] = group_mean
+    share.scatter[unit_of, fold_of_group] = group_scatter
+    share.low[unit_of, fold_of_group] = low
+    share.high[unit_of, fold_of_group] = high
+    return share
+
+
+def _codes(units, count: int) -> tuple[np.ndarray, tuple[str, ...]]:
+    """Each row's unit as a code 0..U-1 and the labels in code order."""
+    import pandas as pd  # a hash table: far faster than sorting strings
+
+    units = np.asarray(units)
+    if units.shape != (count,):
+        raise ValueError(f"expected {count} unit labels, got shape {units.shape}")
+    codes, labels = pd.factorize(units, sort=False)
+    return codes.astype(np.int64), tuple(str(label) for label in labels)
+
+
+def accumulate_units(chunks, width: int, folds: int, seed: int = FOLD_SEED) -> UnitMoments:
+    """One pass over labelled chunks ((values, units, rows) as :func:`unit_shares` takes them) to UnitMoments.
+
+    Blocks of at most BLOCK_ROWS rows keep each block's work in the CPU cache;
+    the running result is merged in place, one vectorised update per block."""
+    total = _Running(width, folds)
+    for values, units, rows in chunks:
+        for start in range(0, len(values), BLOCK_ROWS):
+            end = start + BLOCK_ROWS
+            where = rows + start if np.ndim(rows) == 0 else rows[start:end]
+            total.add(unit_shares(values[start:end], np.asarray(units)[start:end], where, folds, seed))
+    return total.result()
+
+
+class _Running:
+    """UnitMoments that grow in place: capacity doubles as new units appear."""
+
+    def __init__(self, width: int, folds: int):
+        self.width, self.folds = width, folds
+        self.where: dict[str, int] = {}
+        self.store = UnitMoments.empty(width, folds, capacity=64)
+
+    def add(self, share: UnitMoments) -> None:
+        for label in share.units:
+            if label not in self.where:
+                self.where[label] = len(self.where)
+        if len(self.where) > len(self.store.count):
+            grown = UnitMoments.empty(self.width, self.folds, capacity=2 * len(self.where))
+            for old, new in zip(_arrays(self.store), _arrays(grown)):
+                new[: len(old)] = old
+            self.store = grown
+        _merge_into(self.store, np.array([self.where[label] for label in share.units], dtype=np.intp), share)
+
+    def result(self) -> UnitMoments:
+        labels = sorted(self.where, key=unit_order)
+        rows = np.array([self.where[label] for label in labels], dtype=np.intp)
+        return UnitMoments(tuple(labels), *(a[rows] for a in _arrays(self.store)))
