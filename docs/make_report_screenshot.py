@@ -1,8 +1,8 @@
 """Make docs/report_screenshot.png, the README's picture of the demo's build report.
 
-'affix build' turns the demo's calibration scenario into a build folder
-(tests/build_folder.py), which holds the report it wrote, and the same
-headless Chromium the tests use takes the picture at desktop width:
+'affix demo' runs in a temporary folder; its recalibrated build holds the
+report 'affix build' wrote, and the same headless Chromium the tests use
+takes the picture at desktop width:
 
     .venv/bin/python docs/make_report_screenshot.py
 """
@@ -18,8 +18,9 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent / "tests"))
 
 from browser import visit  # noqa: E402
-from build_folder import make_build_folder  # noqa: E402
 from PIL import Image  # noqa: E402
+
+from affix.workflow.cli import main as affix  # noqa: E402
 
 WIDTH, HEIGHT = 1366, 2300  # the page's top: masthead, verdicts, what it is made of, budget, deviation
 
@@ -29,8 +30,10 @@ def main() -> None:
     if chromium is None:
         sys.exit("needs chromium (Debian package 'chromium')")
     with tempfile.TemporaryDirectory(prefix="affix-screenshot-") as tmp:
-        page = make_build_folder(tmp) / "report.html"
-        seen = visit(chromium, page, width=WIDTH, height=HEIGHT, full_page=False)
+        demo = Path(tmp) / "demo"
+        if affix(["demo", str(demo)]) != 0:
+            sys.exit("the demo failed")
+        seen = visit(chromium, demo / "build" / "report.html", width=WIDTH, height=HEIGHT, full_page=False)
     picture = Image.open(io.BytesIO(seen.screenshot)).convert("RGB")
     # 256 colours: the page is flat colour and text, so the picture stays small and sharp.
     picture.quantize(colors=256, dither=Image.Dither.NONE).save(HERE / "report_screenshot.png", optimize=True)

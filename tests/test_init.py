@@ -77,3 +77,33 @@ def test_bad_options_write_nothing(tmp_path, arguments, expected):
     assert done.returncode == 2 and expected in done.stderr, done.stderr
     assert len(done.stderr.splitlines()) == 1
     assert not (tmp_path / "affix.toml").exists()
+
+
+def test_units_given_to_init_reach_the_project_the_header_and_the_report_axes(tmp_path):
+    colour_sensor.write_log(tmp_path / "colour.csv")
+    done = run_affix("init", "colour.csv", *COLUMNS, "--name", "tint", "--range", "0:32767", "--lang", "c",
+                     "--vectors", "2000", "--unit", "X=lux", "--unit", "red=counts", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    project = load_project(tmp_path / "affix.toml")
+    assert project.units == {"X": "lux", "red": "counts"}
+    built = run_affix("build", cwd=tmp_path)
+    assert built.returncode == 0, built.stderr
+    assert re.search(r"#define TINT_lsb_X \S+ /\* lux per count \*/", (tmp_path / "build" / "tint.h").read_text())
+    from affix.report.build_folder import read_build_folder
+    from affix.report.content import output_units
+
+    # The report labels X's axes with the declared unit, the others as units of their own name.
+    assert output_units(read_build_folder(tmp_path / "build")) == ["lux", "units of Y", "units of Z"]
+
+
+@pytest.mark.bad_input("init")
+@pytest.mark.parametrize("unit, message", [
+    ("Q=lux", "'Q' names no input or output"),
+    ("lux", "give each unit as NAME=TEXT"),
+    ("X=*/", "is not one affix writes into code comments"),
+])
+def test_a_unit_for_no_column_or_unsafe_in_a_comment_is_refused(tmp_path, unit, message):
+    colour_sensor.write_log(tmp_path / "colour.csv")
+    done = run_affix("init", "colour.csv", *COLUMNS, f"--unit={unit}", cwd=tmp_path)
+    assert done.returncode == 2 and message in done.stderr and done.stderr.count("\n") == 1, done.stderr
+    assert not (tmp_path / "affix.toml").exists()

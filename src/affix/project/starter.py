@@ -12,6 +12,7 @@ from pathlib import Path
 
 from affix import files
 from affix.emit.templates import render
+from affix.emit.names import check_units
 from affix.errors import UsageError
 from affix.project.file import parse_project
 from affix.quantize.box import resolve_per_name
@@ -31,12 +32,14 @@ def input_extremes(paths, inputs, *, drop_invalid: bool):
 
 
 def starter_text(project_path, *, name, files_written, inputs, outputs, extremes, options, ridge, folds,
-                 drop_invalid, languages, arith, style, vectors) -> str:
-    """The project file's text; ``options`` are plan_fixed_point's keyword arguments as the CLI gave them.
+                 drop_invalid, languages, arith, style, vectors, units=None) -> str:
+    """The project file's text; ``options`` are plan_fixed_point's keyword arguments as the CLI gave them,
+    ``units`` {input or output name: unit text}.
 
     The text is read back through the project loader before it is returned,
     so a starter is never a file 'affix build' would refuse.
     """
+    units = check_units(units or {}, list(inputs) + list(outputs))
     ranges = options["input_ranges"]
     unknown = [key for key in ranges if key is not None and key not in inputs]
     if unknown:
@@ -48,7 +51,8 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
         seen = (float(low) / scale, float(high) / scale)
         given = ranges.get(name_j, ranges.get(None))
         declared = list(given) if given else [math.floor(seen[0]), math.ceil(seen[1])]
-        rows.append({"name": name_j, "range": declared, "seen": seen, "from_data": not given, "lsb": lsb})
+        rows.append({"name": name_j, "range": declared, "seen": seen, "from_data": not given, "lsb": lsb,
+                     "unit": units.get(name_j)})
     budgets = resolve_per_name(outputs, options["budget"], "budget", kind="budget")
     lsbs = resolve_per_name(outputs, options["output_lsb"], "output_lsb", kind="lsb")
     text = render(
@@ -59,7 +63,7 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
         ridge=ridge,
         folds=folds,
         inputs=rows,
-        outputs=[{"name": n, "budget": b, "lsb": q} for n, b, q in zip(outputs, budgets, lsbs)],
+        outputs=[{"name": n, "budget": b, "lsb": q, "unit": units.get(n)} for n, b, q in zip(outputs, budgets, lsbs)],
         coef_bits=options["coef_bits"],
         acc_bits=options["acc_bits"],
         output_type=options["output_ctype"],

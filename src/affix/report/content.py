@@ -77,15 +77,27 @@ class CoveragePanel:
 
 
 def input_units(folder: BuildFolder) -> list[str]:
+    """Each input's axis unit: the model's input values are counts unless the plan gives an input lsb."""
     lsb = folder.plan.input_lsb
-    return [
-        "counts" if lsb is None or lsb[j] is None else f"units of {name} (1 count = {lsb[j]:g})"
-        for j, name in enumerate(folder.model.inputs)
-    ]
+    named = _declared_units(folder, "inputs")
+    units = []
+    for j, name in enumerate(folder.model.inputs):
+        if lsb is None or lsb[j] is None:
+            units.append("counts")
+        else:
+            units.append(f"{named.get(name) or f'units of {name}'} (1 count = {lsb[j]:g})")
+    return units
 
 
 def output_units(folder: BuildFolder) -> list[str]:
-    return [f"units of {name}" for name in folder.model.outputs]
+    named = _declared_units(folder, "outputs")
+    return [named.get(name) or f"units of {name}" for name in folder.model.outputs]
+
+
+def _declared_units(folder: BuildFolder, side: str) -> dict:
+    """{name: unit} as the project declared them (the manifest's interface carries them)."""
+    interface = folder.manifest.get("interface") or {}
+    return {item["name"]: item.get("unit") for item in interface.get(side, ())}
 
 
 def budget_parts(folder: BuildFolder) -> dict:

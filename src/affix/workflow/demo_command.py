@@ -100,7 +100,8 @@ def _steps(staged) -> None:
          ["emit", BOARD_PLAN, "--lang", "micropython", "--name", ESTIMATOR, "--out", BOARD]),
         ("verify it bit for bit in the MicroPython runtime", ["verify", BOARD, "--data", DATA]),
         (f"the {CORE} job as one project file for the recalibrations to come, its box the sensor's rated range",
-         ["init", DATA, *columns, "--name", ESTIMATOR, *rated, *budget, "--target", CORE, "--lang", "c"]),
+         ["init", DATA, *columns, "--name", ESTIMATOR, *rated, *budget, "--target", CORE, "--lang", "c",
+          *(f"--unit={name}={unit}" for name, unit in demo_scenario.UNITS.items())]),
         (f"build it: fit, quantize, emit, verify into {BUILD}/, pinning the interface in {INTERFACE}",
          ["build"]),
     ])

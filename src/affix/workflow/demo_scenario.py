@@ -21,6 +21,7 @@ from affix import files
 BRIDGES = [f"bridge{k}" for k in range(1, 7)]
 INPUTS = BRIDGES + ["therm"]
 OUTPUTS = ["Fx", "Fy", "Fz", "Tx", "Ty", "Tz"]
+UNITS = {"Fx": "N", "Fy": "N", "Fz": "N", "Tx": "N*m", "Ty": "N*m", "Tz": "N*m", **{name: "counts" for name in INPUTS}}
 RATED = np.array([200.0, 200.0, 500.0, 10.0, 10.0, 8.0])  # N, N, N, N*m, N*m, N*m
 SEED = 6006
 ROWS = 6000

@@ -9,7 +9,7 @@ from affix.errors import UsageError
 from affix.project.file import data_files
 from affix.workflow.emit_command import add_emit_options
 from affix.workflow.fit_command import add_fit_options, column_names
-from affix.workflow.quantize_command import add_plan_options, plan_options
+from affix.workflow.quantize_command import add_plan_options, named_values, plan_options
 
 
 def register(sub):
@@ -29,6 +29,9 @@ def register(sub):
     add_fit_options(parser)
     add_plan_options(parser)
     add_emit_options(parser, lang_required=False)
+    parser.add_argument("--unit", action="append", default=[], metavar="NAME=TEXT",
+                        help="unit of an input's or output's values, e.g. Fx=N (repeatable): it reaches the "
+                        "emitted comments, the interface and the report's axes")
     parser.add_argument("--vectors", type=int, default=10**6, metavar="N",
                         help="random vectors the build verifies (default 1000000)")
     parser.set_defaults(run=run, reads=("data",), writes={"project": "file"})
@@ -46,6 +49,9 @@ def run(args) -> int:
     found, written = _data(args.data, project.parent)
     name = args.name or _default_name(found[0])
     check_names(name, inputs, outputs)
+    units = named_values(args.unit, "units", lambda text, _parameter: text)
+    if None in units:
+        raise UsageError("give each unit as NAME=TEXT", "units")
     text = starter_text(
         project,
         name=name,
@@ -54,6 +60,7 @@ def run(args) -> int:
         outputs=outputs,
         extremes=input_extremes(found, inputs, drop_invalid=args.drop_invalid),
         options=plan_options(args),
+        units=units,
         ridge=args.ridge,
         folds=args.folds,
         drop_invalid=args.drop_invalid,

@@ -81,13 +81,13 @@ def add_plan_options(parser) -> None:
 def plan_options(args) -> dict:
     """The plan options as keyword arguments of plan_fixed_point; the input ranges as {name or None: (lo, hi)}."""
     return {
-        "input_ranges": _named(args.range, "range", _range_value),
+        "input_ranges": named_values(args.range, "range", _range_value),
         "coef_bits": args.coef_bits,
         "acc_bits": args.acc_bits,
         "output_ctype": args.output_type,
-        "output_lsb": _named(args.lsb, "lsb", _number) or None,
-        "input_lsb": _named(args.input_lsb, "input_lsb", _number) or None,
-        "budget": _named([p for b in args.budget for p in b.split(",")], "budget", _number) or None,
+        "output_lsb": named_values(args.lsb, "lsb", _number) or None,
+        "input_lsb": named_values(args.input_lsb, "input_lsb", _number) or None,
+        "budget": named_values([p for b in args.budget for p in b.split(",")], "budget", _number) or None,
         "budget_rms": None if args.budget_rms is None else _percent(args.budget_rms),
         "rounding": args.rounding,
         "target": args.target,
@@ -119,7 +119,7 @@ def run(args) -> int:
     return 0
 
 
-def _named(values, parameter, parse) -> dict:
+def named_values(values, parameter, parse) -> dict:
     """{name: value} from [NAME=]VALUE items; the key None holds a value for all.  A name given twice is
     refused: which of two values the user meant is not ours to guess."""
     result = {}
