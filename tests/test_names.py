@@ -24,6 +24,7 @@ from affix.emit.names import INFIX_IN, INFIX_LSB, INFIX_OUT, INFIXES, check_iden
 from affix.emit.templates import render
 from affix.emit.writer import emit
 from affix.errors import UsageError
+from affix.interface import describe
 from conftest import require, run_affix
 from plans import random_plan
 
@@ -129,10 +130,16 @@ def _rendered(plan, name: str) -> dict[str, str]:
         for filename, text in render_c(plan, name, arith=arith, style=style).items():
             texts[f"{arith}-{style}/{filename}"] = text
     texts.update(render_micropython(plan, name))
+    # Code that loads calibration records (affix.record) instead of compiled coefficients.
+    records = describe(plan, name, languages=("c", "micropython"), coefficients="record")
+    for filename, text in render_c(plan, name, interface=records).items():
+        texts[f"record/{filename}"] = text
+    texts.update({f"record/{f}": text for f, text in render_micropython(plan, name, records).items()})
     for declaration_only in (True, False):
-        texts[f"verify_batch {declaration_only}"] = render(
-            "c/verify_batch.c.jinja", declaration_only=declaration_only, name=name,
-            input_ctype="int16_t", output_ctype="int16_t")
+        for loads in (False, True):
+            texts[f"verify_batch {declaration_only} {loads}"] = render(
+                "c/verify_batch.c.jinja", declaration_only=declaration_only, name=name,
+                input_ctype="int16_t", output_ctype="int16_t", records=loads)
     return texts
 
 

@@ -24,11 +24,12 @@ from affix import files, schema
 from affix.arithmetic import ACC_BITS, COEF_BITS, INPUT_CTYPES, OUTPUT_CTYPES, ROUNDINGS
 from affix.emit.names import INFIX_IN, INFIX_LSB, INFIX_OUT
 from affix.errors import FileFormatError
+from affix.record import LAYOUT_VERSION, REASONS, record_size
 
 INTERFACE_FORMAT = "affix.interface/1"
-# How calling code gets the coefficients: compiled into the emitted source.
-# (A calibration record loaded at run time is the planned second way.)
-COEFFICIENT_SOURCES = ("compiled",)
+# How calling code gets the coefficients: compiled into the emitted source,
+# or from a calibration record (affix.record) that the firmware loads at run time.
+COEFFICIENT_SOURCES = ("compiled", "record")
 # The fingerprint keeps 30 bits of the SHA-256: a small int on every
 # MicroPython port (31-bit signed on 32-bit ports), and as a C constant
 # exact in any preprocessor; one change in 2**30 would go unnoticed.
@@ -44,6 +45,8 @@ class Interface:
     fixed_point: {"coef_bits", "acc_bits", "rounding"}, None for float32 code
     c: {"header", "function", "identifiers": [...]} when C is emitted, else None
     micropython: {"module", "functions": [...], "constants": [...]} when MicroPython is emitted, else None
+    record: {"layout_version", "bytes"} where the coefficients come from a calibration record (the
+        widths, shape and scales above are then what every record must match), else None
     """
 
     name: str | None
@@ -56,9 +59,11 @@ class Interface:
     fixed_point: dict | None
     c: dict | None = None
     micropython: dict | None = None
+    record: dict | None = None
 
     def content(self) -> dict:
-        """The fields the fingerprint covers, in file form."""
+        """The fields the fingerprint covers, in file form (``record`` only where there is one, so
+        interfaces of compiled coefficients keep the fingerprints they had before records existed)."""
         return {
             "name": self.name,
             "coefficients": self.coefficients,
@@ -70,6 +75,7 @@ class Interface:
             "fixed_point": None if self.fixed_point is None else dict(self.fixed_point),
             "c": self.c,
             "micropython": self.micropython,
+            **({} if self.record is None else {"record": dict(self.record)}),
         }
 
     @property
@@ -124,6 +130,7 @@ def describe(plan, name=None, *, languages=(), arith: str = "int", units=None, c
 
     units = units or {}
     integer = arith == "int"
+    records = coefficients == "record"
     interface = Interface(
         name=name,
         coefficients=coefficients,
@@ -138,30 +145,43 @@ def describe(plan, name=None, *, languages=(), arith: str = "int", units=None, c
         outputs=tuple({"name": n, "lsb": lsb if integer else None, "unit": units.get(n)}
                       for n, lsb in zip(plan.outputs, plan.output_lsb)),
         fixed_point={"coef_bits": plan.coef_bits, "acc_bits": plan.acc_bits, "rounding": plan.rounding} if integer else None,
+        record={"layout_version": LAYOUT_VERSION, "bytes": record_size(len(plan.outputs), len(plan.inputs),
+                                                                      plan.coef_bits)} if records else None,
     )
     if "c" in languages:
-        interface = replace(interface, c=_c_section(name, plan, integer))
+        interface = replace(interface, c=_c_section(name, plan, integer, records))
     if "micropython" in languages:
-        functions = ["estimate", "estimate_into"]
-        functions += ["estimate_into_viper"] if "viper" in variants(plan.integer_estimator()) else []
+        if records:
+            functions = ["load_record", "estimate_record", "estimate_record_into"]
+        else:
+            functions = ["estimate", "estimate_into"]
+            functions += ["estimate_into_viper"] if "viper" in variants(plan.integer_estimator()) else []
         interface = replace(interface, micropython={
             "module": name,
             "functions": functions + ["self_test"],
-            "constants": ["INPUTS", "OUTPUTS", "LSB", "INTERFACE_ID"],
+            "constants": ["INPUTS", "OUTPUTS", "LSB", "INTERFACE_ID"] + (["RECORD_BYTES"] if records else []),
         })
     return interface
 
 
-def _c_section(name, plan, integer) -> dict:
+def _c_section(name, plan, integer, records=False) -> dict:
     """The header's external names: every one starts with the estimator name (see DEVELOPERS.md)."""
     macro = name.upper()
     identifiers = [f"{macro}_H", f"{macro}_N_INPUTS", f"{macro}_N_OUTPUTS", f"{macro}_INTERFACE_ID",
-                   f"{macro}_EXPECT_INTERFACE", f"{name}_estimate", f"{name}_selftest",
+                   f"{macro}_EXPECT_INTERFACE", f"{name}_selftest",
                    f"{name}_input", f"{name}_output", f"{name}_interface_differs"]
+    if records:
+        function = f"{name}_estimate_record"
+        identifiers += [function, f"{name}_record_load", f"{name}_record", f"{name}_record_row",
+                        f"{macro}_RECORD_BYTES", f"{macro}_RECORD_LAYOUT_VERSION", f"{macro}_UNIT_ID_BYTES"]
+        identifiers += [f"{macro}_RECORD_E_{reason.upper()}" for _, reason, _ in REASONS]
+    else:
+        function = f"{name}_estimate"
+        identifiers.append(function)
     identifiers += [f"{name}_{INFIX_IN}{n}" for n in plan.inputs] + [f"{name}_{INFIX_OUT}{n}" for n in plan.outputs]
     if integer:
         identifiers += [f"{macro}_{INFIX_LSB}{n}" for n in plan.outputs]
-    return {"header": f"{name}.h", "function": f"{name}_estimate", "identifiers": identifiers}
+    return {"header": f"{name}.h", "function": function, "identifiers": identifiers}
 
 
 def _canonical(data) -> bytes:
@@ -202,6 +222,8 @@ def _ranges_are_ordered(values) -> None:
     for k, port in enumerate(values["inputs"]):
         if port["range"][0] > port["range"][1]:
             schema.fail(f"inputs[{k}].range", "is inverted (lo > hi)")
+    if (values["coefficients"] == "record") != ("record" in values):
+        schema.fail("record", "must be given exactly where the coefficients come from a record")
 
 
 def agrees_with_manifest(values) -> None:
@@ -260,6 +282,10 @@ INTERFACE_FIELDS = (
         schema.Field("module", _IDENTIFIER),
         schema.Field("functions", schema.List(_IDENTIFIER, unique=True)),
         schema.Field("constants", schema.List(_IDENTIFIER, unique=True))))),
+    # Absent for compiled coefficients (so their fingerprints stay as they were).
+    schema.Field("record", schema.Record(
+        schema.Field("layout_version", schema.Integer(1, 2**16 - 1)),
+        schema.Field("bytes", schema.Integer(1, 2**40))), default=schema.OMITTED),
 )
 INTERFACE_SCHEMA = schema.Schema("interface", INTERFACE_FORMAT, *INTERFACE_FIELDS, rules=(_ranges_are_ordered,))
 # The same, as a field of another file (the manifest holds the interface it emitted).

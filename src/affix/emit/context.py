@@ -35,7 +35,9 @@ _HALF = (-(2**15), 2**15 - 1)  # what one half of a dual 16-bit multiply-accumul
 
 def build_context(plan, name: str, interface, *, arith: str = "int", style: str = "table") -> dict:
     """The template context for ``plan`` emitted as ``name`` with ``interface``
-    (:class:`affix.interface.Interface`: its fingerprint and units reach the files).
+    (:class:`affix.interface.Interface`: its fingerprint and units reach the files;
+    where it takes its coefficients from a record, the record's facts too, see
+    :func:`record_facts`).
 
     ``plan`` has passed its schema (``Plan.validate``, or read from a file):
     its text fields, which reach comments, hold no comment delimiters or line
@@ -45,10 +47,12 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
     in_ctype = plan.input_ctype
     target = get_target(plan.target)
     reach = input_reach(plan.input_ranges)
+    records = interface.coefficients == "record"
     # A 64-bit sum whose every shift is 32 or more is floored from its high word
     # alone (floor(floor(v / 2^32) / 2^(s-32)) = floor(v / 2^s)): 32-bit work.
+    # A record's shifts are known only at run time: any of 0 .. acc_bits - 1.
     applied_shifts = [min(s, plan.acc_bits - 1) for s in plan.shifts]
-    high_shift = plan.acc_bits == 64 and min(applied_shifts, default=0) >= 32
+    high_shift = plan.acc_bits == 64 and min(applied_shifts, default=0) >= 32 and not records
     split = arith == "int" and style == "unrolled" and split_applies(plan, target)
     type_lo, type_hi = INPUT_CTYPES[in_ctype]
     out_lo, out_hi = OUTPUT_CTYPES[plan.output_ctype]
@@ -60,8 +64,10 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
             "hi": hi,
             "clamp_lo": lo > type_lo,  # a test against the type's own limit could never trigger
             "clamp_hi": hi < type_hi,
-            # Bits of the product this input's terms are formed in (see _product_bits).
-            "product_bits": max(_product_bits(plan, target, row[j], reach[j]) for row in plan.coefficients),
+            # Bits of the product this input's terms are formed in (see _product_bits); a record's
+            # coefficient can be any of its width.
+            "product_bits": max(_product_bits(plan, target, a, reach[j]) for a in
+                                ([-(2 ** (plan.coef_bits - 1))] if records else [row[j] for row in plan.coefficients])),
             "lsb": None if plan.input_lsb is None else plan.input_lsb[j],
             "unit": interface.inputs[j]["unit"],
         }
@@ -103,8 +109,8 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
                 "acc_bound": bounds[i],
                 "q_min": q_min,
                 "q_max": q_max,
-                "saturate_lo": q_min < out_lo,
-                "saturate_hi": q_max > out_hi,
+                "saturate_lo": q_min < out_lo or records,  # a record's outputs are unknown until it is loaded
+                "saturate_hi": q_max > out_hi or records,
                 "lsb": plan.output_lsb[i],
                 "lsb_literal": repr(float(plan.output_lsb[i])),  # shortest digits that read back exactly
                 "unit": interface.outputs[i]["unit"],
@@ -121,7 +127,7 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
         "infix_in": INFIX_IN,  # NAME_<infix><user's name>: DEVELOPERS.md, "Generated identifiers"
         "infix_out": INFIX_OUT,
         "infix_lsb": INFIX_LSB,
-        "function": f"{name}_estimate",
+        "function": f"{name}_estimate_record" if records else f"{name}_estimate",
         "arith": arith,
         "style": style,
         "n_inputs": len(inputs),
@@ -130,7 +136,7 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
         "outputs": outputs,
         "input_ctype": in_ctype,
         "target": target.name,
-        "dual_mac": arith == "int" and (dual_mac_applies(plan, target) or split),
+        "dual_mac": arith == "int" and not records and (dual_mac_applies(plan, target) or split),
         "split_mac": split,
         "input_pairs": [(j, j + 1 if j + 1 < len(inputs) else None) for j in range(0, len(inputs), 2)],
         "input_type_bits": ctype_bits(in_ctype),
@@ -145,7 +151,7 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
         "high_shift": high_shift,
         "narrow_products": plan.acc_bits == 64 and any(t["product_bits"] == 32 for o in outputs for t in o["terms"]),
         "q_bits": 32 if high_shift else plan.acc_bits,  # width of the floored value q
-        "zero_shift": any(s - (32 if high_shift else 0) == 0 for s in applied_shifts),
+        "zero_shift": records or any(s - (32 if high_shift else 0) == 0 for s in applied_shifts),
         "coef_bits": plan.coef_bits,
         "rounding": plan.rounding,
         "accumulator_bound": max(o["acc_bound"] for o in outputs),
@@ -155,6 +161,40 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
         "caution": list(CAUTION),
         "interface_id": interface.id,
         "check_vectors": check_vectors(plan, in_ctype, arith),
+        "records": records,
+        "record": record_facts(plan, interface) if records else None,
+    }
+
+
+def record_facts(plan, interface) -> dict:
+    """What the loader and the header need of the record layout (affix.record) for this interface:
+    each field's offset and size here, the reason codes, the proof's constants, and the bytes of a
+    record of the plan's own integers, which the self-test loads."""
+    from affix import record
+
+    n, m, coef_bytes = len(plan.outputs), len(plan.inputs), plan.coef_bits // 8
+    sizes = {"8N": 8 * n, "N": n, "C*N*M": coef_bytes * n * m}
+    fields, offset = [], 0
+    for part in record.LAYOUT:
+        size = sizes.get(part.size, part.size)
+        fields.append({"name": part.name, "offset": offset, "size": size, "formula": str(part.size),
+                       "content": part.content})
+        offset += size
+    where = {f["name"]: f["offset"] for f in fields}
+    sample = record.encode("selftest", plan.coefficients, plan.offsets, plan.shifts, coef_bits=plan.coef_bits,
+                           acc_bits=plan.acc_bits, interface_id=int(interface.id, 16), data_sha256=None)
+    return {
+        "bytes": offset,
+        "fields": fields,
+        "offset": where,
+        "magic": list(record.MAGIC),
+        "version": record.LAYOUT_VERSION,
+        "unit_id_bytes": record.UNIT_ID_BYTES,
+        "coef_bytes": coef_bytes,
+        "reasons": [{"code": code, "name": name, "text": text} for code, name, text in record.REASONS],
+        "reach": input_reach(plan.input_ranges),
+        "acc_limit": get_target(plan.target).accumulator_limit(plan.acc_bits),
+        "sample": list(sample),
     }
 
 

@@ -66,8 +66,10 @@ def _names_are_emittable(values) -> None:
         if exc.parameter == "name":
             schema.fail("name", exc.message.removeprefix("name: "))
         schema.fail("inputs" if exc.parameter.startswith("input") else "outputs", exc.message)
-    if values["function"] != f"{values['name']}_estimate":
-        schema.fail("function", f"must be {values['name']}_estimate: the estimator's name (field 'name') and _estimate")
+    records = values.get("interface", {}).get("coefficients") == "record"
+    word = "_estimate_record" if records else "_estimate"
+    if values["function"] != f"{values['name']}{word}":
+        schema.fail("function", f"must be {values['name']}{word}: the estimator's name (field 'name') and {word}")
 
 
 def _files_agree(values) -> None:

@@ -47,9 +47,10 @@ def micropython_context(plan, name: str, interface=None) -> dict:
     for output in context["outputs"]:
         output["viper_shift"] = min(output["shift"], _VIPER_MAX_SHIFT)
     estimator = plan.integer_estimator()
+    records = context["records"]  # the integers come at run time, held only below the proven limit
     context.update(
-        viper=viper_fits(estimator),
-        heap_reach=heap_reach(estimator),
+        viper=viper_fits(estimator) and not records,
+        heap_reach=context["record"]["acc_limit"] - 1 if records else heap_reach(estimator),
         small_int_32_min=SMALL_INT_32[0],
         small_int_32_max=SMALL_INT_32[1],
         small_int_64_max=SMALL_INT_64[1],
@@ -86,17 +87,23 @@ def variants(estimator) -> tuple[str, ...]:
     return ("plain", "viper") if viper_fits(estimator) else ("plain",)
 
 
-def notes(plan) -> list[str]:
-    """Plain-text lines for the emit report and the manifest."""
+def notes(plan, *, records: bool = False) -> list[str]:
+    """Plain-text lines for the emit report and the manifest.  For code that loads records, what holds
+    for any record the loader accepts: intermediates below the target's accumulator limit."""
+    from affix.targets import get_target
+
     estimator = plan.integer_estimator()
     lines = []
-    reach = heap_reach(estimator)
+    reach = get_target(plan.target).accumulator_limit(plan.acc_bits) - 1 if records else heap_reach(estimator)
+    function = "estimate_record_into" if records else "estimate_into"
     if reach > SMALL_INT_32[1]:
         ports = "32-bit and 64-bit ports" if reach > SMALL_INT_64[1] else "32-bit ports"
         lines.append(
-            f"micropython: intermediates reach {reach}, beyond the small-int range on {ports}; "
-            "estimate_into allocates long ints there and must not run with the heap locked"
+            f"micropython: intermediates {'may ' if records else ''}reach {reach}, beyond the small-int range on "
+            f"{ports}; {function} allocates long ints there and must not run with the heap locked"
         )
-    if not viper_fits(estimator):
+    if records:
+        lines.append("micropython: no viper variant (a record's integers are known only when it is loaded)")
+    elif not viper_fits(estimator):
         lines.append("micropython: no viper variant (a constant or intermediate exceeds a 32-bit port's small int)")
     return lines

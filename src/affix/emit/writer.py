@@ -15,12 +15,18 @@ from affix.emit import ARITHS, LANGUAGES, MANIFEST_FORMAT, STYLES
 from affix.emit.manifest import estimator_name, generated_files, manifest_name, manifests_in, sha256_of
 from affix.emit.names import check_names, check_units, names_could_clash
 from affix.errors import UsageError
-from affix.interface import describe
+from affix.interface import COEFFICIENT_SOURCES, describe
 
 
-def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str = "table", units=None) -> dict:
+def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str = "table", units=None,
+         coefficients: str = "compiled") -> dict:
     """Write the emitted files for ``lang`` ("c", "micropython" or "all") and
     the manifest into ``out_dir``; return the manifest.
+
+    ``coefficients`` is how the firmware gets them: "compiled" into the code,
+    or "record": the code loads each unit's calibration record
+    (:mod:`affix.record`) at run time, and ``plan``'s own integers serve
+    only as the self-test's record.
 
     ``units`` maps input and output names to unit texts for the comments and
     the interface (:func:`affix.interface.describe`), whose fingerprint every
@@ -38,11 +44,17 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
     _check_choice(style, STYLES, "style")
     if arith == "float32" and "micropython" in languages:
         raise UsageError("float32 arithmetic is a C target only (MicroPython output is integer)", "arith")
+    _check_choice(coefficients, COEFFICIENT_SOURCES, "coefficients")
+    if coefficients == "record" and arith != "int":
+        raise UsageError("a calibration record holds integer coefficients: use the integer arithmetic", "arith")
+    if coefficients == "record" and style != "table":
+        raise UsageError("code that loads a record reads its coefficients from a table: use the table style",
+                         "style")
     check_names(name, plan.inputs, plan.outputs)
     _check_neighbours(name, Path(out_dir))
     plan.validate()
     units = check_units(units or {}, plan.inputs + plan.outputs)
-    interface = describe(plan, name, languages=languages, arith=arith, units=units)
+    interface = describe(plan, name, languages=languages, arith=arith, units=units, coefficients=coefficients)
 
     rendered: dict[str, dict[str, str]] = {}
     notes: list[str] = []
@@ -55,9 +67,10 @@ def emit(plan, *, lang: str, name: str, out_dir, arith: str = "int", style: str 
         from affix.emit.micropython import notes as micropython_notes, render_micropython
 
         rendered["micropython"] = render_micropython(plan, name, interface)
-        notes += micropython_notes(plan)
+        notes += micropython_notes(plan, records=coefficients == "record")
 
     manifest = manifest_for(plan, name, arith, style, rendered, notes)
+    manifest["function"] = interface.c["function"] if interface.c else manifest["function"]
     manifest["interface"] = interface.to_dict()
     with files.FileSet(out_dir, parameter="out_dir", earlier=lambda folder: emitted_before(folder, name)) as staged:
         for sources in rendered.values():

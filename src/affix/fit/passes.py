@@ -41,7 +41,7 @@ def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None
     digest = FileDigest(path)
     ranges = partition(path, workers)
     digest.wait()
-    results = _in_workers([(path, columns, folds, chunk_rows, part, labels) for part in ranges])
+    results = in_workers(_part_moments, [(path, columns, folds, chunk_rows, part, labels) for part in ranges])
     sha256 = digest.hexdigest()  # after the workers' reads: it checks that the file did not change meanwhile
     parts, dropped, first_invalid = results[0]
     for more, count, first in results[1:]:
@@ -52,8 +52,8 @@ def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None
     return parts, dropped, sha256
 
 
-def _in_workers(jobs) -> list:
-    """_part_moments(*job) for each job, in one forked process each; the
+def in_workers(function, jobs) -> list:
+    """function(*job) for each job, in one forked process each; the
     results in job order, so the first error raised is the first in the file,
     as in one pass.
 
@@ -72,7 +72,7 @@ def _in_workers(jobs) -> list:
     try:
         for job in jobs:
             receive, send = context.Pipe(duplex=False)
-            process = context.Process(target=_worker, args=(send, job), daemon=True)
+            process = context.Process(target=_worker, args=(send, function, job), daemon=True)
             process.start()
             send.close()
             workers.append((process, receive))
@@ -96,11 +96,11 @@ def _in_workers(jobs) -> list:
             receive.close()
 
 
-def _worker(send, job):
+def _worker(send, function, job):
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})
     try:
-        send.send((True, _part_moments(*job)))
+        send.send((True, function(*job)))
     except AffixError as exc:
         send.send((False, exc))
     except BaseException as exc:  # a bug: its traceback goes to the parent, whose stderr the user sees

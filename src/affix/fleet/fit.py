@@ -16,10 +16,11 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from affix.errors import AffixError, DataError, UsageError, parameter
-from affix.fit.estimator import check_arguments, check_names, files_moments, model_from_parts
+from affix.fit.estimator import CollinearityWarning, check_arguments, check_names, files_moments, model_from_parts
 from affix.fit.passes import stream_moments
 from affix.intake import from_array
 from affix.model import Model
+from affix.statistics import merge_all
 from affix.unit_ids import case_clashes
 
 _NAMED = 5  # bad units a message names one by one before it counts the rest
@@ -34,7 +35,8 @@ class FleetFit:
     the units that could be fitted; ``rejected``: unit -> why it could not
     be (only with ``skip_bad_units``); ``warnings``: one line per unit with
     nearly collinear inputs; ``data_sha256`` and ``dropped_rows`` of the
-    whole log.
+    whole log; ``pooled``: the model of every fitted unit's rows together,
+    the fleet's nominal unit.
     """
 
     inputs: list[str]
@@ -47,6 +49,7 @@ class FleetFit:
     warnings: list[str] = field(default_factory=list)
     data_sha256: str | None = None
     dropped_rows: int = 0
+    pooled: Model | None = None
 
 
 def fit_fleet(data, inputs, outputs, unit_column: str, *, ridge: float = 0.0, folds: int = 5,
@@ -94,6 +97,14 @@ def fit_fleet(data, inputs, outputs, unit_column: str, *, ridge: float = 0.0, fo
     if result.rejected and not skip_bad_units:
         raise DataError(f"{bad_units_text(result.rejected)}; fix their data, or leave them out with "
                         f"{parameter('skip_bad_units')}", path, column=unit_column)
+    if not result.models:
+        raise DataError(f"no unit can be fitted: {bad_units_text(result.rejected)}", path, column=unit_column)
+    fitted = [parts.moments(unit) for unit in result.models]
+    pooled = [merge_all([unit[f] for unit in fitted], len(columns)) for f in range(parts.folds)]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", CollinearityWarning)  # each unit's own warning has been noted
+        result.pooled = model_from_parts(pooled, inputs, outputs, ridge=ridge, folds=folds, data_sha256=sha256,
+                                         dropped_rows=dropped)
     return result
 
 

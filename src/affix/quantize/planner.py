@@ -39,6 +39,7 @@ def plan_fixed_point(
     calibration=None,
     search=True,
     default_budget=None,
+    best_effort=False,
     box_points=BOX_POINTS,
     seed=0,
 ) -> Plan:
@@ -60,6 +61,8 @@ def plan_fixed_point(
     input_ctype: the C type of every input (default: the smallest holding the box,
         unsigned where no input can be negative).
     search: False rounds every coefficient on its own (no error feedback).
+    best_effort: where no configuration meets the budget, plan the closest one (its
+        ``budget["met"]`` is false) instead of raising BudgetError: a fleet unit's verdict.
     """
     model.validate()  # its file schema: a model built in Python meets what a model file must
     _check_choice(coef_bits, COEF_BITS, "coef_bits")
@@ -106,7 +109,7 @@ def plan_fixed_point(
     chosen_budget = _budget(model, budget, budget_rms, float_rms, default=default_budget)
     configs = configurations(coef_bits, acc_bits, output_ctype, target=core, n_inputs=len(box),
                              n_outputs=model.n_outputs)
-    choice = choose(problem, configs, chosen_budget)
+    choice = choose(problem, configs, chosen_budget, best_effort=best_effort)
     plan = _plan(model, problem, choice, chosen_budget, input_lsb, core.name, in_ctype)
     return _with_measurement(plan, problem, choice, model, scale, calibration, box_points, seed)
 

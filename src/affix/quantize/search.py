@@ -82,7 +82,9 @@ def design_configuration(problem: Problem, config: Configuration) -> tuple[Outpu
     return tuple(designs)
 
 
-def choose(problem: Problem, configs, budget: Budget | None) -> Choice:
+def choose(problem: Problem, configs, budget: Budget | None, *, best_effort: bool = False) -> Choice:
+    """The cheapest configuration meeting ``budget``; where none does, the closest to it when the budget is
+    the default one or ``best_effort`` says so, else BudgetError."""
     feasible, reason = [], None
     for config in configs:
         try:
@@ -96,7 +98,7 @@ def choose(problem: Problem, configs, budget: Budget | None) -> Choice:
         feasible.append(choice)
     if not feasible:
         raise NoConfigurationError(f"no configuration of the allowed widths works: {reason}", reason.per_output)
-    if budget.default:
+    if budget.default or best_effort:
         return min(feasible, key=lambda c: budget.shortfall(c.accuracy))
     raise _best_achievable(problem, feasible, budget)
 

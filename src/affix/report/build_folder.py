@@ -18,13 +18,12 @@ from pathlib import Path, PurePosixPath
 
 from affix import files
 from affix.errors import FileFormatError
+from affix.fleet import table as fleet_table
 from affix.model import Model
 from affix.plan import Plan
 from affix.verify.check import find_manifest
 
 BUILD_FORMAT = "affix.build/1"
-FLEET_FIXED_COLUMNS = ("unit", "rows", "passed")
-FLEET_OUTPUT_FIELDS = ("rms", "cv_rms", "worst_case", "margin", "passed")
 _SHA256 = re.compile(r"^[0-9a-f]{64}$")
 
 
@@ -53,7 +52,7 @@ class FleetUnit:
     unit: str
     rows: int
     passed: bool
-    per_output: dict  # output -> {"rms", "cv_rms", "worst_case", "margin": float, "passed": bool}
+    per_output: dict  # output -> {"rms", "cv_rms", "worst_case", "margin": float or None (empty cell), "passed": bool}
     line: int  # 1-based line in fleet.csv (the header is line 1)
 
 
@@ -218,7 +217,7 @@ def _diff(data, path, model: Model) -> dict:
 
 
 def _fleet(path: Path, outputs) -> list[FleetUnit]:
-    expected = list(FLEET_FIXED_COLUMNS) + [f"{o}.{f}" for o in outputs for f in FLEET_OUTPUT_FIELDS]
+    expected = fleet_table.header(outputs)
     try:
         with open(path, newline="", encoding="utf-8") as handle:
             rows = list(csv.reader(handle))
@@ -235,8 +234,8 @@ def _fleet(path: Path, outputs) -> list[FleetUnit]:
         cells = dict(zip(expected, (c.strip() for c in row)))
         try:
             per_output = {
-                o: {f: _flag(cells[f"{o}.{f}"]) if f == "passed" else _finite(cells[f"{o}.{f}"])
-                    for f in FLEET_OUTPUT_FIELDS}
+                o: {f: _flag(cells[f"{o}.{f}"]) if f == "passed" else _figure(cells[f"{o}.{f}"])
+                    for f in fleet_table.OUTPUT_FIELDS}
                 for o in outputs
             }
             units.append(FleetUnit(cells["unit"], int(cells["rows"]), _flag(cells["passed"]), per_output, line))
@@ -249,6 +248,11 @@ def _flag(text: str) -> bool:
     if text not in ("true", "false"):
         raise ValueError(f"'{text}' is not true or false")
     return text == "true"
+
+
+def _figure(text: str) -> float | None:
+    """A fleet.csv figure: a finite number, or an empty cell for one the unit does not have."""
+    return None if text == "" else _finite(text)
 
 
 def _finite(text: str) -> float:

@@ -316,13 +316,15 @@ def fleet_section(folder: BuildFolder) -> dict:
     if not units:
         return {"absent": "This is not a fleet build (no fleet.csv), so there are no per-unit margins."}
     outputs = list(folder.model.outputs)
-    margins = [[u.per_output[o]["margin"] for u in units] for o in outputs]
-    passed = [[u.per_output[o]["passed"] for u in units] for o in outputs]
+    # A unit with no plan (it could not be fitted, or does not fit the interface) has no margins to plot.
+    planned = [u for u in units if all(u.per_output[o]["margin"] is not None for o in outputs)]
+    margins = [[u.per_output[o]["margin"] for u in planned] for o in outputs]
+    passed = [[u.per_output[o]["passed"] for u in planned] for o in outputs]
     image = plots.fleet(outputs, margins, passed, content.output_units(folder))
     failing = [
-        {"unit": u.unit, "rows": Number(u.rows, f"fleet.csv#L{u.line}/rows"),
+        {"unit": u.unit, "rows": Number(u.rows, f"fleet.csv#L{u.line}/rows"), "planned": u in planned,
          "outputs": [{"output": o, "margin": Number(u.per_output[o]["margin"], f"fleet.csv#L{u.line}/{o}.margin")}
-                     for o in outputs if not u.per_output[o]["passed"]]}
+                     for o in outputs if not u.per_output[o]["passed"] and u.per_output[o]["margin"] is not None]}
         for u in units if not u.passed
     ]
     return {"absent": None, "image": image, "failing": failing, "units": Number(len(units), "data:fleet/units")}

@@ -55,6 +55,7 @@ class Signature:
     output_ctype: str  # "float" for float32 code
     n_inputs: int
     n_outputs: int
+    records: bool = False  # the code loads its coefficients from a calibration record
 
     @classmethod
     def from_manifest(cls, manifest) -> "Signature":
@@ -64,11 +65,13 @@ class Signature:
             output_ctype="float" if manifest["arith"] == "float32" else manifest["output_ctype"],
             n_inputs=len(manifest["inputs"]),
             n_outputs=len(manifest["outputs"]),
+            records=manifest.get("interface", {}).get("coefficients") == "record",
         )
 
     @property
     def template_context(self) -> dict:
-        return {"name": self.name, "input_ctype": self.input_ctype, "output_ctype": self.output_ctype}
+        return {"name": self.name, "input_ctype": self.input_ctype, "output_ctype": self.output_ctype,
+                "records": self.records}
 
 
 class CompileFailure(VerificationError):
@@ -76,28 +79,45 @@ class CompileFailure(VerificationError):
 
 
 class CEstimator:
-    """The emitted C, loaded through cffi: ``evaluate`` takes integer rows, ``selftest`` runs NAME_selftest()."""
+    """The emitted C, loaded through cffi: ``evaluate`` takes integer rows, ``selftest`` runs NAME_selftest().
+
+    For code that loads a calibration record, ``evaluate`` needs the record's bytes (``record=``),
+    and ``load(data)`` is what NAME_record_load() returns for them."""
 
     def __init__(self, module, signature: Signature):
         self._ffi, self._lib = module.ffi, module.lib
         self.signature = signature
-        self._batch = getattr(self._lib, f"{signature.name}_verify_batch")
+        batch = "verify_record_batch" if signature.records else "verify_batch"
+        self._batch = getattr(self._lib, f"{signature.name}_{batch}")
         self._selftest = getattr(self._lib, f"{signature.name}_selftest")
 
     def selftest(self) -> int:
         """The number of wrong outputs the emitted self-test reports (0: it passes)."""
         return int(self._selftest())
 
-    def evaluate(self, vectors) -> np.ndarray:
+    def load(self, data: bytes) -> int:
+        """NAME_record_load()'s code for ``data`` (0: loaded), read from a buffer of exactly its size."""
+        return int(self._batch(self._record(data), len(data), self._ffi.NULL, self._ffi.NULL, 0))
+
+    def evaluate(self, vectors, record: bytes | None = None) -> np.ndarray:
         sig = self.signature
         y = np.ascontiguousarray(vectors, dtype=DTYPES[sig.input_ctype]).reshape(-1, sig.n_inputs)
         x = np.empty((len(y), sig.n_outputs), dtype=DTYPES[sig.output_ctype])
-        self._batch(
+        arguments = (
             self._ffi.cast(f"const {sig.input_ctype} *", self._ffi.from_buffer(y)),
             self._ffi.cast(f"{sig.output_ctype} *", self._ffi.from_buffer(x, require_writable=True)),
             len(y),
         )
+        if not sig.records:
+            self._batch(*arguments)
+            return x
+        code = self._batch(self._record(record), len(record), *arguments)
+        if code != 0:
+            raise VerificationError(f"{sig.name}_record_load() refuses a record the reference accepts (code {code})")
         return x
+
+    def _record(self, data: bytes):
+        return self._ffi.cast("const uint8_t *", self._ffi.from_buffer(bytes(data) or b"\0"))
 
 
 def load_c(emit_dir, manifest, *, cache_dir=None) -> CEstimator:

@@ -27,6 +27,7 @@ from affix.arithmetic import IntegerEstimator
 from affix.emit.manifest import generated_files, load_manifest, manifests_in, sha256_of
 from affix.errors import FileFormatError, VerificationError
 from affix.float32_arithmetic import Float32Estimator
+from affix.record import REASONS, Contract, RecordError, decode, encode
 from affix.errors import ToolError
 from affix.targets import DEFAULT_TARGET, get_target
 from affix.targets.figures import SIMAVR
@@ -35,6 +36,13 @@ from affix.verify.c_build import COMPILE_FLAGS, CompileFailure, load_c
 from affix.verify.vectors import calibration_vectors, vector_sets
 
 SHOWN_MISMATCHES = 5
+# Each unit's calibration record of a fleet is run over fewer vectors than a
+# single build's code (its arithmetic is the same code, verified in full with
+# the nominal record): every corner of the box up to this many (a fixed
+# sample beyond), this many random box points, and points beyond the box.
+RECORD_CORNERS = 256
+RECORD_RANDOM = 64
+RECORD_BEYOND = 16
 MICROPYTHON_VECTORS = 10**4  # per vector set and variant: the runtime is an interpreter
 CORE_VECTORS = 10**4  # per vector set on an emulated core: one Python call per vector
 DEFAULT_MPY_MARCH = "armv7emsp"  # the native code checked where the plan's target runs no MicroPython
@@ -148,7 +156,7 @@ def check_files(folder: Path, manifest) -> None:
 
 def verify(
     target, *, vectors: int = 10**6, data=None, seed: int = 0, micropython_vectors: int = MICROPYTHON_VECTORS,
-    core_vectors: int = CORE_VECTORS, cache_dir=None,
+    core_vectors: int = CORE_VECTORS, cache_dir=None, records=None,
 ) -> Report:
     """Check the emit that ``target`` names (a manifest file, or a folder with one
     manifest); the report, or VerificationError (carrying the report as
@@ -157,10 +165,18 @@ def verify(
     Integer C planned for an emulated core also runs there, cross-compiled, on
     at most ``core_vectors`` of each set; the MicroPython runtime sees at most
     ``micropython_vectors`` of each set.
+
+    Code that loads calibration records runs with a record of the manifest's
+    own integers over every set, and its loaders must refuse damaged copies of
+    that record for the reasons :func:`affix.record.decode` gives.  ``records``
+    ({unit: bytes}) are a fleet's records: each must load, in the reference
+    and in both languages, and compute what the reference computes with it
+    (RECORD_CORNERS, RECORD_RANDOM and RECORD_BEYOND vectors each).
     """
     path, manifest = find_manifest(target)
     folder = path.parent
     check_files(folder, manifest)
+    fleet = _FleetRecords.of(manifest, records, seed) if _loads_records(manifest) else None
     integer = IntegerEstimator.from_mapping(manifest)
     float32 = Float32Estimator.from_mapping(manifest) if manifest["arith"] == "float32" else None
     sets = vector_sets(manifest["input_ranges"], manifest["input_ctype"], n_random=vectors, seed=seed)
@@ -171,17 +187,22 @@ def verify(
     results: list[Result] = []
     listed = manifest["files"]
     if "c" in listed:
-        results += _check_c(folder, manifest, sets, float32 or integer, cache_dir)
-        if float32 is None and _emulated(manifest) and not _missing_for_core(manifest):
+        results += _check_c(folder, manifest, sets, float32 or integer, cache_dir, fleet)
+        if float32 is None and fleet is None and _emulated(manifest) and not _missing_for_core(manifest):
             results += _check_on_core(folder, manifest, sets, integer, core_vectors)
     if "micropython" in listed:
-        results += _check_micropython(folder, manifest, sets, integer, micropython_vectors)
+        results += _check_micropython(folder, manifest, sets, integer, micropython_vectors, fleet)
     notes = [f"note: {n}" for n in manifest["notes"]]
+    if fleet is not None and fleet.units:
+        notes.append(f"note: {len(fleet.units)} unit records, each over {len(fleet.vectors)} vectors (corners, "
+                     "random and beyond the box)")
     if "c" in listed:
         notes.append(f"note: C built through cffi with {' '.join(COMPILE_FLAGS)}")
         if float32 is None and _emulated(manifest):
             core, missing = get_target(manifest["target"]), _missing_for_core(manifest)
-            if missing:  # the host's C is verified in full; the run on the core is what could not be done
+            if fleet is not None:
+                notes.append(f"note: C that loads records is not run on the emulated {core.name}")
+            elif missing:  # the host's C is verified in full; the run on the core is what could not be done
                 notes.append(f"note: C not run on the emulated {core.name}: {missing}")
             else:
                 notes.append(f"note: C for {core.name} built with {core.compiler} {' '.join(flags_for(core))}, "
@@ -194,18 +215,27 @@ def verify(
     return report
 
 
-def _check_c(folder, manifest, sets, reference, cache_dir) -> list[Result]:
+def _check_c(folder, manifest, sets, reference, cache_dir, fleet=None) -> list[Result]:
     name = manifest["name"]
-    estimate = f"C {name}_estimate() ({manifest['arith']}, {manifest['style']})"
+    estimate = f"C {manifest['function']}() ({manifest['arith']}, {manifest['style']})"
     try:
         code = load_c(folder, manifest, cache_dir=cache_dir)
     except CompileFailure as exc:
         return [Result(estimate, "build", 0, 0, error=exc.message)]
     results = []
+    record = None if fleet is None else {"record": fleet.nominal}
     for vector_set in sets.values():
-        parts = [compare(estimate, vector_set.name, y, reference.evaluate(y), code.evaluate(y))
+        parts = [compare(estimate, vector_set.name, y, reference.evaluate(y), code.evaluate(y, **(record or {})))
                  for y in vector_set.chunks()]
         results.append(_merged(estimate, vector_set.name, parts))
+    if fleet is not None:
+        loader = f"C {name}_record_load()"
+        results.append(fleet.compare_codes(loader, [CODE_NAMES.get(code.load(r), "ok") for r in fleet.damaged]))
+        if fleet.units:
+            codes = [CODE_NAMES.get(code.load(r), "ok") for r in fleet.units.values()]
+            results.append(fleet.compare_loads(loader, codes))
+            outputs = [code.evaluate(fleet.vectors, record=r) for r, c in zip(fleet.units.values(), codes) if c == "ok"]
+            results.append(fleet.compare_outputs(estimate, codes, outputs))
     failures = code.selftest()
     error = None if failures == 0 else f"returns {failures}: that many wrong outputs on its built-in vectors"
     results.append(Result(f"C {name}_selftest()", SELF_TEST, 1, 0, error=error))
@@ -249,7 +279,7 @@ def _check_on_core(folder, manifest, sets, reference, limit: int) -> list[Result
     return results
 
 
-def _check_micropython(folder, manifest, sets, reference, limit: int) -> list[Result]:
+def _check_micropython(folder, manifest, sets, reference, limit: int, fleet=None) -> list[Result]:
     from affix.emit.micropython import variants
     from affix.verify.micropython_run import VARIANTS, ImportFailure, cross_compile, run_micropython, run_self_test
 
@@ -263,16 +293,21 @@ def _check_micropython(folder, manifest, sets, reference, limit: int) -> list[Re
     except VerificationError as exc:
         self_test = Result(f"{label} self_test()", SELF_TEST, 1, 0, error=exc.message)
     results = []
-    for variant in ("list", *variants(reference)):
+    for variant in ("record_list", "record") if fleet is not None else ("list", *variants(reference)):
         entry = f"{label} {VARIANTS[variant][0]}()"
         for vector_set in sets.values():
             y = vector_set.sample(limit)
             try:
-                actual = run_micropython(module, y, variant=variant)
-            except VerificationError as exc:  # it raised: the other sets would too
-                results.append(Result(entry, vector_set.name, len(y), 0, error=exc.message))
+                if fleet is None:
+                    actual = run_micropython(module, y, variant=variant)
+                else:
+                    codes, (actual,) = run_micropython(module, y, variant=variant, records=[fleet.nominal])
+            except (VerificationError, ValueError) as exc:  # it raised (or refused the record): the other sets would too
+                results.append(Result(entry, vector_set.name, len(y), 0, error=str(exc)))
                 break
             results.append(compare(entry, vector_set.name, y, reference.evaluate(y), actual))
+    if fleet is not None:
+        results += _micropython_records(module, label, fleet)
     results.append(self_test)
     march = get_target(manifest["target"]).mpy_march or DEFAULT_MPY_MARCH
     with tempfile.TemporaryDirectory(prefix="affix-mpy-") as tmp:  # the .mpy is a check, not an output
@@ -281,6 +316,89 @@ def _check_micropython(folder, manifest, sets, reference, limit: int) -> list[Re
         except VerificationError as exc:
             results.append(Result(f"{label} (mpy-cross)", "compile", 0, 0, error=exc.message))
     return results
+
+
+def _micropython_records(module, label, fleet) -> list[Result]:
+    """load_record over the damaged copies of the nominal record, then every unit's record with its vectors."""
+    from affix.verify.micropython_run import run_micropython
+
+    loader, estimate = f"{label} load_record()", f"{label} estimate_record_into()"
+    try:
+        codes, _ = run_micropython(module, fleet.vectors[:1], variant="record", records=fleet.damaged)
+        results = [fleet.compare_codes(loader, codes)]
+        if fleet.units:
+            codes, outputs = run_micropython(module, fleet.vectors, variant="record", records=list(fleet.units.values()))
+            results += [fleet.compare_loads(loader, codes), fleet.compare_outputs(estimate, codes, list(outputs))]
+    except VerificationError as exc:
+        return [Result(loader, "records", 0, 0, error=exc.message)]
+    return results
+
+
+def _loads_records(manifest) -> bool:
+    return manifest.get("interface", {}).get("coefficients") == "record"
+
+
+CODE_NAMES = {code: name for code, name, _ in REASONS}
+
+
+@dataclass
+class _FleetRecords:
+    """The records a verification runs: a record of the manifest's own integers (``nominal``), damaged
+    copies of it (every truncation, and one bit flipped in every byte), and the fleet's ``units``,
+    with the ``vectors`` each unit record is run over."""
+
+    contract: Contract
+    nominal: bytes
+    damaged: list
+    expected_codes: list
+    units: dict
+    vectors: np.ndarray
+
+    @classmethod
+    def of(cls, manifest, units, seed) -> "_FleetRecords":
+        contract = Contract.of(manifest)
+        nominal = encode("nominal", manifest["coefficients"], manifest["offsets"], manifest["shifts"],
+                         coef_bits=manifest["coef_bits"], acc_bits=manifest["acc_bits"],
+                         interface_id=contract.interface_id, data_sha256=None)
+        damaged = [nominal[:size] for size in range(len(nominal))]
+        damaged += [nominal[:k] + bytes([nominal[k] ^ (1 << (k % 8))]) + nominal[k + 1:] for k in range(len(nominal))]
+        sets = vector_sets(manifest["input_ranges"], manifest["input_ctype"], n_random=RECORD_RANDOM, seed=seed)
+        vectors = np.vstack([sets["corners"].sample(RECORD_CORNERS), sets["random"].chunk(0),
+                             sets["beyond the box"].sample(RECORD_BEYOND)])
+        return cls(contract, nominal, damaged, [cls._code(contract, r) for r in damaged], dict(units or {}), vectors)
+
+    @staticmethod
+    def _code(contract, data) -> str:
+        try:
+            decode(data, contract)
+        except RecordError as exc:
+            return exc.reason
+        return "ok"
+
+    def compare_codes(self, artefact, codes) -> Result:
+        """The loader's verdict on each damaged record against the reference's."""
+        bad = [k for k, (want, got) in enumerate(zip(self.expected_codes, codes)) if want != got]
+        bad += list(range(len(codes), len(self.expected_codes)))
+        examples = [(f"damaged record {k} ({len(self.damaged[k])} bytes)", self.expected_codes[k],
+                     codes[k] if k < len(codes) else None) for k in bad[:SHOWN_MISMATCHES]]
+        return Result(artefact, "damaged records", len(self.damaged), len(bad), examples)
+
+    def compare_loads(self, artefact, codes) -> Result:
+        """Every unit's record must load ("ok"), as the reference loads it."""
+        refused = [(unit, "ok", code) for unit, code in zip(self.units, codes) if code != "ok"]
+        refused += [(unit, "ok", None) for unit in list(self.units)[len(codes):]]
+        return Result(artefact, "unit records", len(self.units), len(refused), refused[:SHOWN_MISMATCHES])
+
+    def compare_outputs(self, artefact, codes, outputs) -> Result:
+        """Each loaded unit record's outputs against the reference computed with that record."""
+        loaded = [unit for unit, code in zip(self.units, codes) if code == "ok"]
+        count, bad, examples = 0, 0, []
+        for unit, actual in zip(loaded, outputs):
+            expected = decode(self.units[unit], self.contract).integer_estimator(self.contract).evaluate(self.vectors)
+            result = compare(artefact, unit, self.vectors, expected, actual)
+            count, bad = count + result.count, bad + result.mismatches
+            examples += [(f"unit {unit}: {y}", e, a) for y, e, a in result.examples]
+        return Result(artefact, "unit records", count, bad, examples[:SHOWN_MISMATCHES])
 
 
 def compare(artefact: str, vector_set: str, y, expected, actual) -> Result:

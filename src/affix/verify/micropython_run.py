@@ -24,6 +24,9 @@ VARIANTS = {
     "plain": ("estimate_into", False),
     "viper": ("estimate_into_viper", False),
     "list": ("estimate", True),
+    # Modules that load a calibration record (run with records=...).
+    "record": ("estimate_record_into", False),
+    "record_list": ("estimate_record", True),
 }
 HOW_SEEN = {
     "mem_total": "micropython.mem_total() grew over the call",
@@ -44,8 +47,14 @@ def tool(name: str) -> str:
 
 
 def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bool = False,
-                    input_typecode: str | None = None) -> np.ndarray:
+                    input_typecode: str | None = None, records=None):
     """Outputs of ``py_file`` (a .py or .mpy module) for each row of ``vectors``, as int64 (k, n_outputs).
+
+    With ``records`` (a list of byte strings, for a module that loads
+    calibration records, and a record variant) each goes through
+    ``load_record`` and the vectors are evaluated with every one it accepts:
+    the result is (codes, outputs), codes holding "ok" or the reason a record
+    was refused, one per record, and outputs (accepted records, k, n_outputs).
 
     The inputs reach the module in a list, or with ``input_typecode`` (an
     array module type code such as "H", what ADC DMA buffers hold) in an
@@ -62,6 +71,8 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
         raise ValueError(f"input_typecode must be one of {', '.join(_INPUT_TYPECODES)}")
     if check_alloc and returns_list:
         raise ValueError("estimate returns a new list: it allocates by design")
+    if (records is not None) != variant.startswith("record"):
+        raise ValueError("the record variants, and only they, take records")
     py_file = Path(py_file)
     vectors = np.atleast_2d(vectors)
     if not np.issubdtype(vectors.dtype, np.integer):
@@ -80,11 +91,20 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
             input_typecode=input_typecode,
             n_inputs=vectors.shape[1],
             chunk=_CHUNK,
+            records=records is not None,
         )
         (tmp / "driver.py").write_text(driver)
         vectors.tofile(tmp / "vectors.bin")
-        done = _run([exe, "driver.py", "vectors.bin", "results.bin", str(len(vectors))], cwd=tmp)
+        command = [exe, "driver.py", "vectors.bin", "results.bin", str(len(vectors))]
+        if records is not None:
+            with open(tmp / "records.bin", "wb") as stored:
+                for record in records:
+                    stored.write(len(record).to_bytes(4, "little") + bytes(record))
+            command += ["records.bin", "codes.txt"]
+        done = _run(command, cwd=tmp)
         words = done.stdout.split()
+        codes = (tmp / "codes.txt").read_text().split() if records is not None and (tmp / "codes.txt").is_file() else []
+        evaluations = len(vectors) * (codes.count("ok") if records is not None else 1)
         if done.returncode == 3 and words[:1] == ["allocated"]:
             k, how = int(words[1]), HOW_SEEN[words[2]]
             raise VerificationError(
@@ -94,9 +114,12 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
         # The module itself raised (this port prints tracebacks on stdout): the emitted code is wrong.
         if "Traceback (most recent call last)" in done.stdout + done.stderr:
             raise VerificationError(f"{py_file.name} ({function}) raised in MicroPython: {_last_line(done)}")
-        if done.returncode != 0 or words != ["evaluated", str(len(vectors))]:
+        if done.returncode != 0 or words != ["evaluated", str(evaluations)]:
             raise ToolError(f"micropython failed running {py_file.name} ({function}): {_last_line(done)}")
         results = np.fromfile(tmp / "results.bin", dtype="<i8")
+    if records is not None:
+        loaded = codes.count("ok")
+        return codes, results.reshape(loaded, len(vectors), -1) if loaded else np.empty((0, len(vectors), 0), np.int64)
     return results.reshape(len(vectors), -1)
 
 
