@@ -46,30 +46,37 @@ class FleetPlan:
     ``nominal``: the plan of the fleet's nominal unit (its widths, types,
     box and lsbs are every unit's); ``plans``: unit -> :class:`Plan`, for
     the units that fit the interface; ``unfit``: unit -> why it has no plan
-    (it could not be fitted, or its coefficients do not fit the interface).
+    (it could not be fitted, or its coefficients do not fit the interface);
+    ``margins``: unit -> per output the smaller of the budget's margin
+    (budget - the integer code's worst-case deviation, or the RMS-growth
+    limit - the total RMS) and the tolerance's (tolerance - the unit's
+    cross-validated RMS, its RMS without cross-validation), None where an
+    output has neither; a unit passes where no margin is negative.
     """
 
     nominal: Plan
     plans: dict[str, Plan] = field(default_factory=dict)
     unfit: dict[str, str] = field(default_factory=dict)
+    margins: dict[str, list] = field(default_factory=dict)
 
     def passed(self, unit: str) -> bool:
-        """Whether the unit has a plan that meets its budget on every output."""
-        plan = self.plans.get(unit)
-        return plan is not None and bool(plan.budget["met"])
+        """Whether the unit has a plan and no output's margin is negative."""
+        return unit in self.plans and all(m is None or m >= 0 for m in self.margins[unit])
 
     @property
     def failing(self) -> list[str]:
         return [unit for unit in [*self.plans, *self.unfit] if not self.passed(unit)]
 
 
-def plan_fleet(fleet, input_ranges, *, budget=None, budget_rms=None, output_lsb=None, coef_bits=None,
-               acc_bits=None, output_ctype=None, input_lsb=None, rounding="nearest", target=DEFAULT_TARGET,
-               input_ctype=None, search=True, calibration=None, progress=None) -> FleetPlan:
+def plan_fleet(fleet, input_ranges, *, budget=None, budget_rms=None, tolerance=None, output_lsb=None,
+               coef_bits=None, acc_bits=None, output_ctype=None, input_lsb=None, rounding="nearest",
+               target=DEFAULT_TARGET, input_ctype=None, search=True, calibration=None, progress=None) -> FleetPlan:
     """Plan every unit of ``fleet`` (:class:`affix.fleet.fit.FleetFit`) in one interface.
 
     The arguments mean what they mean for :func:`affix.quantize.plan_fixed_point`; a budget
-    (``budget`` or ``budget_rms``) is required, as it is each unit's pass/fail criterion.
+    (``budget`` or ``budget_rms``) is required, as it is each unit's pass/fail criterion on the
+    integer code.  ``tolerance`` (one value, or {output: value}) is the largest cross-validated RMS
+    error a unit's own fit may have: a unit beyond it is out of tolerance whatever the code does.
     ``calibration`` (rows of the inputs) is measured on the nominal plan only.  ``progress``,
     if given, is called with the number of units planned so far in the current configuration.
     """
@@ -77,6 +84,7 @@ def plan_fleet(fleet, input_ranges, *, budget=None, budget_rms=None, output_lsb=
         raise UsageError(f"a fleet needs an accuracy budget, each unit's pass/fail criterion: give "
                          f"{parameter('budget')} or {parameter('budget_rms')}", parameter="budget")
     box = resolve_ranges(fleet.inputs, input_ranges)
+    limits = resolve_per_name(fleet.outputs, tolerance, "tolerance", kind="tolerance")
     core = get_target(target)
     common = dict(input_lsb=input_lsb, budget=budget, budget_rms=budget_rms, rounding=rounding, target=core.name,
                   input_ctype=input_ctype, search=search, default_budget=False, best_effort=True)
@@ -110,7 +118,18 @@ def plan_fleet(fleet, input_ranges, *, budget=None, budget_rms=None, output_lsb=
                                calibration=calibration, **common)
     unfit = {**fleet.rejected, **unfit}
     return FleetPlan(nominal, {u: plans[u] for u in fleet.units if u in plans},
-                     {u: unfit[u] for u in fleet.units if u in unfit})
+                     {u: unfit[u] for u in fleet.units if u in unfit},
+                     {u: _margins(plans[u], fleet.models[u], limits) for u in fleet.units if u in plans})
+
+
+def _margins(plan, model, tolerance) -> list:
+    """Per output the smaller of the budget's and the tolerance's margins (see FleetPlan)."""
+    error = model.cv_rms if model.cv_rms is not None else model.rms
+    margins = []
+    for budget_margin, limit, figure in zip(plan.budget["margins"], tolerance, error):
+        both = [m for m in (budget_margin, None if limit is None else limit - float(figure)) if m is not None]
+        margins.append(min(both) if both else None)
+    return margins
 
 
 class _Scale:

@@ -6,7 +6,9 @@ reads them back): ``unit,rows,passed``, then per output ``OUTPUT.rms``,
 ``OUTPUT.passed``.  Booleans are ``true``/``false``; numbers are written so
 they read back exactly; a figure a unit does not have (no cross-validation,
 or no plan because the unit could not be fitted or does not fit the
-interface) is an empty cell.  Units come in fleet order.
+interface) is an empty cell.  The margin is the smaller of the budget's and
+the tolerance's (:class:`affix.fleet.plan.FleetPlan`).  Units come in fleet
+order.
 """
 from __future__ import annotations
 
@@ -31,7 +33,7 @@ def fleet_table(fleet, fleet_plan) -> str:
         model, plan = fleet.models.get(unit), fleet_plan.plans.get(unit)
         cells = [unit, fleet.rows[unit], _flag(fleet_plan.passed(unit))]
         for i in range(len(fleet.outputs)):
-            margin = None if plan is None else plan.budget["margins"][i]
+            margin = None if plan is None else fleet_plan.margins[unit][i]
             cells += [
                 _number(None if model is None else model.rms[i]),
                 _number(None if model is None or model.cv_rms is None else model.cv_rms[i]),

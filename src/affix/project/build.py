@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import os
 import warnings
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -33,6 +34,7 @@ from affix.errors import (AffixError, BudgetError, DataError, FileFormatError, I
                           ToolError, UsageError, parameter)
 from affix.intake.digest import combined
 from affix.interface import Interface
+from affix.project import fleet_build
 from affix.targets import get_target
 
 BUILD_FORMAT = "affix.build/1"
@@ -52,14 +54,27 @@ class BuildResult:
     target: str | None = None  # the plan's target (affix.targets)
     target_figures: dict | None = None  # its numbers from affix.targets.figures, where measured
     record: dict | None = None  # build.json
+    fleet: object | None = None  # affix.project.fleet_build.Fleet of a fleet build
+
+
+@contextmanager
+def no_bar(total: int, label: str):
+    """What a build shows of a long step by default: nothing (``bar`` of :func:`build_project`)."""
+    yield lambda done: None
 
 
 def build_project(project, *, out=None, repin: bool = False, force: bool = False,
-                  progress=lambda line: None, warn=lambda line: None) -> BuildResult:
+                  progress=lambda line: None, warn=lambda line: None, bar=no_bar) -> BuildResult:
     """Run every step for ``project`` into ``out`` (default: the project's build folder).
 
     ``progress`` receives one line per finished step, ``warn`` each warning.
     ``force`` replaces a previous build even where files were edited by hand.
+    ``bar(total, label)`` is a context manager for a long step over many units, yielding
+    a function that takes how many are done (the CLI draws a progress bar with it).
+
+    A fleet (``data.unit_column``) fits every unit, plans them in one interface and
+    writes fleet.csv and each passing unit's calibration record; when some unit fails
+    its budget the build folder is still written, then BudgetError names the units.
     """
     out = Path(project.out if out is None else out)
     previous = previous_build(out, force=force)
@@ -70,14 +85,28 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
     staged = None
 
     def earlier(folder: Path) -> set[str]:
-        """What the build may replace or remove in its folder: what the last build wrote and, with
-        ``force``, whatever this build writes over (a file it never wrote is still left alone)."""
-        names = {RECORD, *previous["files"]} if previous else set()
+        """What the build may replace or remove in its folder: what the last build wrote (a file in a
+        subfolder, records/UNIT.bin, by its folder) and, with ``force``, whatever this build writes over
+        (a file it never wrote is still left alone)."""
+        names = {RECORD, *(name.split("/")[0] for name in previous["files"])} if previous else set()
         return names | set(staged.names) if force else names
 
+    fleet = None
     with files.protected(inputs), files.FileSet(out, parameter="out", earlier=earlier) as staged:
-        model = _fit(project, staged, result, progress, warn)
-        plan = _quantize(project, model, None if repin else pin, pin_path, staged, result, progress)
+        if project.unit_column is None:
+            model = _fit(project, staged, result, progress, warn)
+            plan = _quantize(project, model, None if repin else pin, pin_path, staged, result, progress)
+        else:
+            def step(name: str, summary: str) -> None:
+                _step(result, progress, name, summary)
+
+            fleet = fleet_build.fit_step(project, staged, step, progress, warn)
+            model = fleet.fit.pooled
+            options = within(project.plan_options(), None if repin else pin, model.outputs)
+            options["tolerance"] = {c.name: c.tolerance for c in project.outputs if c.tolerance is not None} or None
+            fleet_build.quantize_step(project, fleet, options, None if repin else pin, pin_path, staged, step, bar)
+            plan = fleet.plan.nominal
+            _coverage(project, model, result, progress, warn)
         interface = _emit(project, plan, staged, result, progress, warn)
         result.interface_changes = pin.changes(interface) if pin else []
         if result.interface_changes and not repin:
@@ -85,14 +114,17 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
                 f"the build would change the interface pinned in {pin_path} ({pin.id} -> {interface.id}): "
                 + "; ".join(result.interface_changes)
                 + f". Nothing was written; {parameter('repin')} accepts the change (and the firmware must follow it)")
-        _verify(project, staged, result, progress)
+        if fleet is not None:
+            fleet_build.records_step(project, fleet, interface, staged, step, bar)
+        _verify(project, staged, result, progress, None if fleet is None else fleet.records)
         if previous is not None:
             _diff_previous(out, staged, result, progress, warn)
         if project.report:
             _report(project, model, interface, out, staged, result, progress, warn)
-        result.record = _record(project, model, interface, out, staged, result)
+        result.record = _record(project, model, interface, out, staged, result, fleet)
         staged.write_json(RECORD, result.record)
     result.interface = interface
+    result.fleet = fleet
     if pin is None or result.interface_changes or pin_path != project.interface_path:
         interface.save(project.interface_path)
         result.pin = "pinned" if pin is None else "repinned"
@@ -100,6 +132,8 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
             warn(f"{pin_path} belongs to the estimator's former name and is no longer used; delete it")
     else:
         result.pin = "kept"
+    if fleet is not None and fleet.failing:
+        raise fleet_build.failing_error(fleet)
     return result
 
 
@@ -157,13 +191,17 @@ def _fit(project, staged, result, progress, warn):
     sources = ", ".join(project.relative(p) for p in project.data_files)
     _step(result, progress, "fit", f"{model.n_samples} rows of {sources}: {model.n_inputs} inputs -> "
                                    f"{model.n_outputs} outputs, condition number {condition}")
+    _coverage(project, model, result, progress, warn)
+    return model
+
+
+def _coverage(project, model, result, progress, warn) -> None:
     covered = coverage(model, [c.range for c in project.inputs], [c.lsb for c in project.inputs])
     result.coverage = covered
     progress(f"{'':10}{summary_line(covered)}")
     for column in covered:
         if column.extrapolated:
             warn(column.warning())
-    return model
 
 
 def _quantize(project, model, pin, pin_path, staged, result, progress):
@@ -227,14 +265,15 @@ def _emit(project, plan, staged, result, progress, warn) -> Interface:
 
     lang = "all" if len(project.languages) > 1 else project.languages[0]
     manifest = emit(plan, lang=lang, name=project.name, out_dir=staged.staging, arith=project.arith,
-                    style=project.style, units=project.units)
+                    style=project.style, units=project.units, coefficients=project.coefficients)
     written = [f for names in manifest["files"].values() for f in names] + [manifest_name(project.name)]
     for name in written:
         staged.entry(name)  # written by emit's own file set, inside the build's staging folder
     interface = Interface.from_dict(manifest["interface"])
     _step(result, progress, "emit", f"{', '.join(written)}; interface {interface.id}")
     result.target = plan.target
-    if "c" in manifest["files"] and project.arith == "int" and get_target(plan.target).compiler is not None:
+    if ("c" in manifest["files"] and project.arith == "int" and project.coefficients == "compiled"
+            and get_target(plan.target).compiler is not None):
         _measure(staged, plan.target, result, progress, warn)
     return interface
 
@@ -269,11 +308,11 @@ def _report(project, model, interface, out, staged, result, progress, warn) -> N
     _step(result, progress, "report", REPORT_FILE)
 
 
-def _verify(project, staged, result, progress) -> None:
+def _verify(project, staged, result, progress, records=None) -> None:
     from affix.verify.check import verify
 
     report = verify(staged.staging, vectors=project.vectors, seed=project.seed,
-                    data=list(project.data_files) if project.calibration_rows else None)
+                    data=list(project.data_files) if project.calibration_rows else None, records=records)
     staged.write_json("verification.json", report.to_dict())
     _step(result, progress, "verify", f"PASS, {report.mismatches} mismatches in {report.evaluations} evaluations")
 
@@ -296,7 +335,7 @@ def _diff_previous(out, staged, result, progress, warn) -> None:
     _step(result, progress, "diff", f"against the previous build: {verdict}{moved} (diff.json)")
 
 
-def _record(project, model, interface, out, staged, result) -> dict:
+def _record(project, model, interface, out, staged, result, fleet=None) -> dict:
     data = [{"path": project.relative(p), "sha256": files.file_sha256(p)} for p in project.data_files]
     if combined(d["sha256"] for d in data) != model.data_sha256:
         raise DataError("a data file changed while the build read it; run the build again")
@@ -312,8 +351,19 @@ def _record(project, model, interface, out, staged, result) -> dict:
         "target_figures": result.target_figures,
         "coverage": [c.to_dict() for c in result.coverage],
         "steps": list(result.steps),
-        "files": {name: files.file_sha256(staged.staging / name) for name in sorted(staged.names)},
+        **({} if fleet is None else {"fleet": fleet_build.record_summary(fleet)}),
+        "files": _hashes(staged),
     }
+
+
+def _hashes(staged) -> dict:
+    """The SHA-256 of every file of the staged build; a subfolder's files as 'FOLDER/NAME'."""
+    hashes = {}
+    for name in staged.names:
+        path = staged.staging / name
+        inside = sorted(path.iterdir()) if path.is_dir() else [path]
+        hashes.update({f.relative_to(staged.staging).as_posix(): files.file_sha256(f) for f in inside})
+    return dict(sorted(hashes.items()))
 
 
 def _step(result, progress, step: str, summary: str) -> None:

@@ -38,6 +38,7 @@ class OutputColumn:
     budget: float | None  # worst-case deviation limit, physical units
     lsb: float | None  # None: the quantizer's rule chooses
     unit: str | None
+    tolerance: float | None = None  # a fleet unit's largest cross-validated RMS, physical units
 
 
 @dataclass(frozen=True)
@@ -48,6 +49,8 @@ class Project:
     name: str
     data_files: tuple[Path, ...]
     drop_invalid: bool
+    unit_column: str | None
+    skip_bad_units: bool
     ridge: float
     folds: int
     inputs: tuple[InputColumn, ...]
@@ -64,6 +67,7 @@ class Project:
     style: str
     arith: str
     coefficients: str
+    flash_address: int | None
     vectors: int
     seed: int
     calibration_rows: bool
@@ -162,7 +166,7 @@ def _toml_error(message: str) -> tuple[str, int | None]:
 
 def _project(path: Path, v: dict, fail) -> Project:
     inputs = tuple(InputColumn(c["name"], c["range"], c["lsb"], c["unit"]) for c in v["inputs"])
-    outputs = tuple(OutputColumn(c["name"], c["budget"], c["lsb"], c["unit"]) for c in v["outputs"])
+    outputs = tuple(OutputColumn(c["name"], c["budget"], c["lsb"], c["unit"], c["tolerance"]) for c in v["outputs"])
     _check_names(v["name"], inputs, outputs, fail)
     if input_ctype([c.range for c in inputs]) is None:
         fail(("inputs",), "the ranges together fit no single input type (int8_t .. uint32_t); the firmware "
@@ -179,12 +183,37 @@ def _project(path: Path, v: dict, fail) -> Project:
         fail(("fixed_point", "budget_rms_percent"), "give either per-output budgets or an RMS growth, not both")
     if emit["arith"] == "float32" and "micropython" in emit["languages"]:
         fail(("emit", "arith"), 'float32 is a C target only: set languages = ["c"] with it')
+    unit_column = v["data"]["unit_column"]
+    coefficients = emit["coefficients"] or ("record" if unit_column else "compiled")
+    if unit_column in [c.name for c in inputs + outputs]:
+        fail(("data", "unit_column"), f"'{unit_column}' is an input or output column; the unit column names units")
+    if (coefficients == "record") != (unit_column is not None):
+        fail(("emit", "coefficients"), 'a fleet (data.unit_column) takes its coefficients from records: '
+             'coefficients = "record" goes with a unit column, and only with one')
+    if coefficients == "record":
+        if emit["arith"] != "int":
+            fail(("emit", "arith"), 'a calibration record holds integers: records need arith = "int"')
+        if emit["style"] != "table":
+            fail(("emit", "style"), 'code that loads records reads them as a table: records need style = "table"')
+        if fixed["budget_rms_percent"] is None and not any(c.budget is not None for c in outputs):
+            fail(("outputs",), "a fleet needs a budget, each unit's pass/fail criterion: give each output a "
+                               "budget, or fixed_point.budget_rms_percent")
+    for k, column in enumerate(outputs):
+        if column.tolerance is not None and unit_column is None:
+            fail(("outputs", k, "tolerance"), "a tolerance is a fleet unit's acceptance limit: it needs "
+                                              "data.unit_column")
+    if v["records"]["flash_address"] is not None and coefficients != "record":
+        fail(("records", "flash_address"), "only a fleet build (data.unit_column) writes records")
+    if v["records"]["flash_address"] is not None and v["records"]["flash_address"] >= 2**32:
+        fail(("records", "flash_address"), "Intel HEX addresses are 32 bits: must be below 0x100000000")
     folder = path.parent
     return Project(
         path=path,
         name=v["name"],
         data_files=_located(lambda: data_files(folder, v["data"]["files"]), ("data", "files"), fail),
         drop_invalid=v["data"]["drop_invalid"],
+        unit_column=unit_column,
+        skip_bad_units=v["data"]["skip_bad_units"],
         ridge=v["fit"]["ridge"],
         folds=_folds(v["fit"]["folds"], fail),
         inputs=inputs,
@@ -200,7 +229,8 @@ def _project(path: Path, v: dict, fail) -> Project:
         languages=tuple(emit["languages"]),
         style=emit["style"],
         arith=emit["arith"],
-        coefficients=emit["coefficients"],
+        coefficients=coefficients,
+        flash_address=v["records"]["flash_address"],
         vectors=verify["vectors"],
         seed=verify["seed"],
         calibration_rows=verify["calibration_rows"],

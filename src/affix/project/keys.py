@@ -124,6 +124,11 @@ SCHEMA = Table(
                              "project file; read in the order given, each pattern's matches in name order",
                              required=True),
                 "drop_invalid": Key(boolean, "leave out rows holding NaN, infinite or empty values", default=False),
+                "unit_column": Key(text, "the column naming each row's unit (text or integer ids): a fleet log, "
+                                   "one calibration record per unit"),
+                "skip_bad_units": Key(boolean, "go on without the units the data cannot fit (too few rows, a "
+                                      "constant input, a singular fit), naming them, instead of stopping",
+                                      default=False),
             },
         ),
         "fit": Table(
@@ -152,6 +157,8 @@ SCHEMA = Table(
             keys={
                 "name": COLUMN,
                 "budget": Key(number(positive=False), "largest worst-case deviation of the integer code, physical units"),
+                "tolerance": Key(number(positive=True), "a fleet's acceptance limit: largest cross-validated RMS "
+                                 "error of a unit's own fit, physical units"),
                 "lsb": Key(number(positive=True), "physical size of one output count (default: finest power of two)"),
                 "unit": UNIT,
             },
@@ -179,8 +186,16 @@ SCHEMA = Table(
                 "languages": Key(choices(LANGUAGES), "\"c\", \"micropython\" or both", default=list(LANGUAGES)),
                 "style": Key(choice(STYLES), "C layout", default="table"),
                 "arith": Key(choice(ARITHS), "integer or float32 C", default="int"),
-                "coefficients": Key(choice(COEFFICIENT_SOURCES), "how the firmware gets the coefficients",
-                                    default=COEFFICIENT_SOURCES[0]),
+                "coefficients": Key(choice(COEFFICIENT_SOURCES), "how the firmware gets the coefficients: "
+                                    "\"compiled\" into the code, or from each unit's calibration \"record\" "
+                                    "(default: \"record\" with a unit column, else \"compiled\")"),
+            },
+        ),
+        "records": Table(
+            doc="the calibration records of a fleet build",
+            keys={
+                "flash_address": Key(integer(0), "where each unit's record goes in flash: the address of its "
+                                     "Intel HEX copy (records/UNIT.hex); without it no .hex is written"),
             },
         ),
         "verify": Table(

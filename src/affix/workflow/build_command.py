@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import sys
+from contextlib import contextmanager
 
 
 def register(sub):
@@ -19,17 +20,28 @@ def register(sub):
                         help="accept a change of the pinned interface and pin the new one")
     parser.add_argument("--force", action="store_true",
                         help="replace the previous build even where its files were edited by hand")
+    parser.add_argument("--skip-bad-units", action="store_true",
+                        help="a fleet: go on without the units the data cannot fit, naming them "
+                        "(as data.skip_bad_units = true)")
+    parser.add_argument("--quiet", action="store_true",
+                        help="no step lines and no progress bar: only warnings, errors and the closing line")
     parser.set_defaults(run=run, reads=("project",))
 
 
 def run(args) -> int:
+    from dataclasses import replace
+
     from affix.project import load_project
-    from affix.project.build import build_project
+    from affix.project.build import build_project, no_bar
 
     project = load_project(args.project)
+    if args.skip_bad_units:
+        project = replace(project, skip_bad_units=True)
     result = build_project(
         project, out=args.out, repin=args.repin, force=args.force,
-        progress=print, warn=lambda line: print(f"affix: warning: {line}", file=sys.stderr),
+        progress=(lambda line: None) if args.quiet else print,
+        warn=lambda line: print(f"affix: warning: {line}", file=sys.stderr),
+        bar=no_bar if args.quiet or not sys.stderr.isatty() else terminal_bar,
     )
     for change in result.interface_changes:
         print(f"  interface change: {change}")
@@ -37,3 +49,12 @@ def run(args) -> int:
     print(f"built {project.name} in {result.out}: {len(result.steps)} steps passed; interface "
           f"{result.interface.id} {pinned} {project.interface_path}")
     return 0
+
+
+@contextmanager
+def terminal_bar(total: int, label: str):
+    """A progress bar on the terminal (stderr) for a step over many units; gone when the step ends."""
+    from tqdm import tqdm
+
+    with tqdm(total=total, desc=f"{label:<16}", unit="unit", leave=False, file=sys.stderr) as shown:
+        yield lambda done: shown.update(done - shown.n)

@@ -75,3 +75,56 @@ def write_csv(path, rows: int = ROWS, seed: int = SEED, run: int = 1) -> None:
         loads = ",".join(f"{data[name][r]:.4f}" for name in OUTPUTS)
         lines.append(f"{counts},{loads}")
     files.write_text(path, "\n".join(lines) + "\n")
+
+
+# A production batch of the same sensor (the fleet demo): every unit has the
+# design's geometry, but its own gauges: each bridge's sensitivity within a
+# few percent of nominal, its own zeros and thermal drifts.  One unit's
+# bridge 3 has a poorly bonded gauge: a third of its sensitivity is gone and
+# it is noisy, so that unit cannot meet the accuracy budget.
+BATCH_UNITS = 50
+BATCH_ROWS = 400  # per unit, as the line's rig logs them
+BATCH_SEED = 7007
+UNIT_COLUMN = "serial"
+OUT_OF_TOLERANCE = "WR-0017"
+
+
+def batch_rows(units: int = BATCH_UNITS, rows: int = BATCH_ROWS, seed: int = BATCH_SEED) -> dict[str, np.ndarray]:
+    """The line's log of a production batch, unit after unit: column name -> values (``serial`` holds
+    the unit ids, WR-0001 ...)."""
+    design = sensitivity(np.random.default_rng(SEED))
+    rng = np.random.default_rng(seed)
+    columns = {name: [] for name in [UNIT_COLUMN] + INPUTS + OUTPUTS}
+    for number in range(1, units + 1):
+        unit = f"WR-{number:04d}"
+        gauges = rng.normal(1.0, 0.02, size=(6, 1))
+        noise = np.full(6, 4.0)
+        if unit == OUT_OF_TOLERANCE:
+            gauges[2] = 0.65
+            noise[2] = 40.0
+        k = design * gauges
+        zero = rng.uniform(-1500, 1500, size=6)
+        drift = rng.uniform(-14, 14, size=6)
+        wrench = rng.uniform(-0.8, 0.8, size=(rows, 6)) * RATED
+        temperature = rng.uniform(15.0, 45.0, size=rows)
+        bridges = zero + wrench @ k.T + np.outer(temperature - 25.0, drift) + rng.normal(size=(rows, 6)) * noise
+        therm = 2048 + 40.0 * (temperature - 25.0) + rng.normal(scale=1.0, size=rows)
+        counts = np.clip(np.rint(np.column_stack([bridges, therm])), -32768, 32767).astype(np.int64)
+        reference = wrench + rng.normal(size=wrench.shape) * RATED * 2e-4
+        columns[UNIT_COLUMN] += [unit] * rows
+        for j, name in enumerate(INPUTS):
+            columns[name].append(counts[:, j])
+        for i, name in enumerate(OUTPUTS):
+            columns[name].append(reference[:, i])
+    return {name: np.array(values) if name == UNIT_COLUMN else np.concatenate(values)
+            for name, values in columns.items()}
+
+
+def write_batch_csv(path, units: int = BATCH_UNITS, rows: int = BATCH_ROWS, seed: int = BATCH_SEED) -> None:
+    data = batch_rows(units, rows, seed)
+    lines = [",".join([UNIT_COLUMN] + INPUTS + OUTPUTS)]
+    for r in range(len(data[UNIT_COLUMN])):
+        counts = ",".join(str(int(data[name][r])) for name in INPUTS)
+        loads = ",".join(f"{data[name][r]:.4f}" for name in OUTPUTS)
+        lines.append(f"{data[UNIT_COLUMN][r]},{counts},{loads}")
+    files.write_text(path, "\n".join(lines) + "\n")
