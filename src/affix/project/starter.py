@@ -32,9 +32,10 @@ def input_extremes(paths, inputs, *, drop_invalid: bool):
 
 
 def starter_text(project_path, *, name, files_written, inputs, outputs, extremes, options, ridge, folds,
-                 drop_invalid, languages, arith, style, vectors, units=None) -> str:
+                 drop_invalid, languages, arith, style, vectors, units=None, unit_column=None,
+                 coefficients=None, tolerance=None, skip_bad_units=False, flash_address=None) -> str:
     """The project file's text; ``options`` are plan_fixed_point's keyword arguments as the CLI gave them,
-    ``units`` {input or output name: unit text}.
+    ``units`` {input or output name: unit text}; the rest, a fleet's keys (see affix.project.keys).
 
     The text is read back through the project loader before it is returned,
     so a starter is never a file 'affix build' would refuse.
@@ -55,6 +56,7 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
                      "unit": units.get(name_j)})
     budgets = resolve_per_name(outputs, options["budget"], "budget", kind="budget")
     lsbs = resolve_per_name(outputs, options["output_lsb"], "output_lsb", kind="lsb")
+    tolerances = resolve_per_name(outputs, tolerance, "tolerance", kind="tolerance")
     text = render(
         TEMPLATE,
         name=name,
@@ -63,7 +65,8 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
         ridge=ridge,
         folds=folds,
         inputs=rows,
-        outputs=[{"name": n, "budget": b, "lsb": q, "unit": units.get(n)} for n, b, q in zip(outputs, budgets, lsbs)],
+        outputs=[{"name": n, "budget": b, "lsb": q, "unit": units.get(n), "tolerance": t}
+                 for n, b, q, t in zip(outputs, budgets, lsbs, tolerances)],
         coef_bits=options["coef_bits"],
         acc_bits=options["acc_bits"],
         output_type=options["output_ctype"],
@@ -76,6 +79,10 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
         style=style,
         arith=arith,
         vectors=vectors,
+        unit_column=unit_column,
+        coefficients=coefficients,
+        skip_bad_units=skip_bad_units,
+        flash_address=None if flash_address is None else f"0x{flash_address:08X}",
     )
     parse_project(text, project_path)
     return text

@@ -5,6 +5,7 @@ same entry point, so the demo doubles as a worked example of the workflow.
 """
 from __future__ import annotations
 
+import csv
 import json
 import os
 import shlex
@@ -33,6 +34,12 @@ BUILD, FIRST_BUILD = "build", "build-first"
 # on each bridge, and the thermistor reads 1500..3000 between 11 and 49 degC.
 ADC_RANGES = ("-32768:32767", "therm=0:4095")
 RANGES = ("-22000:22000", "therm=1500:3000")
+# The production line: a batch of the same sensor, one firmware and one
+# calibration record per unit, in a project folder of its own.  A unit's own
+# fit must stay within about twice the typical unit's cross-validated RMS.
+BATCH, PRODUCTION = "wrist_batch.csv", "production"
+TOLERANCE = {"Fx": 0.15, "Fy": 0.15, "Fz": 0.3, "Tx": 0.006, "Ty": 0.006, "Tz": 0.004}
+FLASH_ADDRESS = "0x0800F800"  # the last 2 KB page of a 64 KB flash at 0x08000000
 
 
 def register(sub):
@@ -63,7 +70,8 @@ def run_demo(outdir) -> int:
         return failed.status
     print(f"done: {Path(outdir) / FIRMWARE / (ESTIMATOR + '.h')} and {ESTIMATOR}.c for the {CORE}, "
           f"{Path(outdir) / BOARD / (ESTIMATOR + '.py')} for MicroPython; the recalibrated build in "
-          f"{Path(outdir) / BUILD}, its changes in {Path(outdir) / BUILD / 'diff.json'}")
+          f"{Path(outdir) / BUILD}, its changes in {Path(outdir) / BUILD / 'diff.json'}; the production batch's "
+          f"records in {Path(outdir) / PRODUCTION / BUILD / 'records'}")
     return 0
 
 
@@ -112,20 +120,50 @@ def _steps(staged) -> None:
     print(f"step {number}: months later the same sensor is calibrated again; its bridges have aged: {RECALIBRATION}\n"
           f"$ cp -r {BUILD} {FIRST_BUILD}          # keep the first build to compare\n"
           f"$ edit {PROJECT}: files = [\"{RECALIBRATION}\"]\n")
-    _run(main, number + 1, [
+    number = _run(main, number + 1, [
         ("rebuild: new coefficients within the pinned interface (same scales, same fingerprint)", ["build"]),
         ("what the recalibration changed", ["diff", FIRST_BUILD, BUILD]),
     ])
+    _production(main, staged, number, columns, rated, budget)
 
 
-def _run(main, first: int, steps) -> int:
-    """Run each (title, argv) as a numbered step, printing the command first; stop at a failure.
-    The number of the step after them."""
+def _production(main, staged, number: int, columns, rated, budget) -> None:
+    """A production batch: every unit fitted from one log, one interface, a record per unit, a reject."""
+    demo_scenario.write_batch_csv(staged.entry(BATCH))
+    staged.entry(PRODUCTION).mkdir()
+    units, rows = demo_scenario.BATCH_UNITS, demo_scenario.BATCH_ROWS
+    print(f"step {number}: the production line calibrates a batch of {units} sensors, {rows} rows each, one "
+          f"unit after another -> {BATCH}\n")
+    tolerance = ["--tolerance", ",".join(f"{k}={v}" for k, v in TOLERANCE.items())]
+    project = f"{PRODUCTION}/{PROJECT}"
+    number = _run(main, number + 1, [
+        ("one firmware for the whole batch, each unit's coefficients in its own calibration record",
+         ["init", BATCH, *columns, "--unit-column", demo_scenario.UNIT_COLUMN, "--name", ESTIMATOR, *rated,
+          *budget, *tolerance, "--target", CORE, "--flash-address", FLASH_ADDRESS, "--vectors", "100000",
+          "--project", project]),
+        (f"build the batch: every unit, one interface, {PRODUCTION}/{BUILD}/fleet.csv and a record per "
+         "passing unit (status 3 names the units the line rejects)", ["build", PRODUCTION]),
+    ], allowed=3)
+    table = Path(PRODUCTION) / BUILD / "fleet.csv"
+    rows_of = list(csv.DictReader(table.open(newline="")))
+    print(f"step {number}: the rejects in {table}")
+    for row in rows_of:
+        if row["passed"] == "false":
+            failed = [f"{o} (cv rms {float(row[o + '.cv_rms']):.3g}, margin {float(row[o + '.margin']):+.3g})"
+                      for o in demo_scenario.OUTPUTS if row[f"{o}.passed"] == "false"]
+            print(f"  {row['unit']}: " + ", ".join(failed))
+    print(f"  the other {len(rows_of) - sum(r['passed'] == 'false' for r in rows_of)} units' records: "
+          f"{PRODUCTION}/{BUILD}/records/UNIT.bin, .c and .hex at {FLASH_ADDRESS}\n")
+
+
+def _run(main, first: int, steps, allowed: int = 0) -> int:
+    """Run each (title, argv) as a numbered step, printing the command first; stop at a failure
+    (a status other than 0 and ``allowed``).  The number of the step after them."""
     for number, (title, argv) in enumerate(steps, start=first):
         print(f"step {number}: {title}\n$ affix {shlex.join(argv)}")
         status = main(argv)
         print()
-        if status:
+        if status not in (0, allowed):
             raise _StepFailed(status)
     return first + len(steps)
 
@@ -136,7 +174,7 @@ def _earlier_demo(outdir: Path) -> set[str]:
     stays untouched, and the demo is refused)."""
     from affix.emit.writer import emitted_before
 
-    names = {DATA, MODEL, PLAN, BOARD_PLAN, PROJECT, INTERFACE, RECALIBRATION}
+    names = {DATA, MODEL, PLAN, BOARD_PLAN, PROJECT, INTERFACE, RECALIBRATION, BATCH}
     for folder in (FIRMWARE, BOARD):
         emitted = outdir / folder
         if emitted.is_dir() and set(os.listdir(emitted)) <= emitted_before(emitted):
@@ -144,6 +182,10 @@ def _earlier_demo(outdir: Path) -> set[str]:
     for build in (BUILD, FIRST_BUILD):
         if (outdir / build).is_dir() and set(os.listdir(outdir / build)) <= _built(outdir / build):
             names.add(build)
+    production = outdir / PRODUCTION
+    if (production.is_dir() and set(os.listdir(production)) <= {PROJECT, INTERFACE, BUILD}
+            and set(os.listdir(production / BUILD)) <= {n.split("/")[0] for n in _built(production / BUILD)}):
+        names.add(PRODUCTION)
     return names
 
 

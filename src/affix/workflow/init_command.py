@@ -1,15 +1,17 @@
 """affix init: write a starter project file from the data and the options the other commands take."""
 from __future__ import annotations
 
+import argparse
 import os
 import re
 from pathlib import Path
 
 from affix.errors import UsageError
+from affix.interface import COEFFICIENT_SOURCES
 from affix.project.file import data_files
 from affix.workflow.emit_command import add_emit_options
 from affix.workflow.fit_command import add_fit_options, column_names
-from affix.workflow.quantize_command import add_plan_options, named_values, plan_options
+from affix.workflow.quantize_command import add_plan_options, named_values, per_name_values, plan_options
 
 
 def register(sub):
@@ -34,7 +36,29 @@ def register(sub):
                         "emitted comments, the interface and the report's axes")
     parser.add_argument("--vectors", type=int, default=10**6, metavar="N",
                         help="random vectors the build verifies (default 1000000)")
+    fleet = parser.add_argument_group("a fleet: one firmware, many units, each with its own calibration record")
+    fleet.add_argument("--unit-column", metavar="NAME",
+                       help="the column naming each row's unit (text or integer ids)")
+    fleet.add_argument("--coefficients", choices=COEFFICIENT_SOURCES,
+                       help="how the firmware gets the coefficients (default: record with --unit-column, "
+                       "else compiled)")
+    fleet.add_argument("--tolerance", action="append", metavar="[NAME=]V,...",
+                       help="a unit's largest cross-validated RMS error per output, physical units")
+    fleet.add_argument("--skip-bad-units", action="store_true",
+                       help="go on without the units the data cannot fit, naming them")
+    fleet.add_argument("--flash-address", type=_address, metavar="ADDRESS",
+                       help="where each record goes in flash (0x0800F800): its Intel HEX copy's address")
     parser.set_defaults(run=run, reads=("data",), writes={"project": "file"})
+
+
+def _address(text: str) -> int:
+    try:
+        value = int(text, 0)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not an address: {text!r} (decimal, or hex as 0x0800F800)") from None
+    if not 0 <= value < 2**32:
+        raise argparse.ArgumentTypeError(f"not a 32-bit address: {text}")
+    return value
 
 
 def run(args) -> int:
@@ -68,6 +92,11 @@ def run(args) -> int:
         arith=args.arith,
         style=args.style,
         vectors=args.vectors,
+        unit_column=args.unit_column,
+        coefficients=args.coefficients,
+        tolerance=per_name_values(args.tolerance, "tolerance"),
+        skip_bad_units=args.skip_bad_units,
+        flash_address=args.flash_address,
     )
     write_starter(project, text)
     print(f"wrote {project}: review the ranges and budgets, then run 'affix build{_argument(project)}'")

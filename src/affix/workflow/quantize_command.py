@@ -119,6 +119,11 @@ def run(args) -> int:
     return 0
 
 
+def per_name_values(arguments, parameter) -> dict | None:
+    """The numbers of a repeated [NAME=]V[,...] option (as --budget takes them), {name: value}, or None."""
+    return named_values([p for item in arguments or [] for p in item.split(",")], parameter, _number) or None
+
+
 def named_values(values, parameter, parse) -> dict:
     """{name: value} from [NAME=]VALUE items; the key None holds a value for all.  A name given twice is
     refused: which of two values the user meant is not ours to guess."""
