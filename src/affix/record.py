@@ -118,6 +118,17 @@ def record_size(n_outputs: int, n_inputs: int, coef_bits: int) -> int:
     return HEADER_BYTES + 9 * n_outputs + coef_bits // 8 * n_outputs * n_inputs + CRC_BYTES
 
 
+def field_sizes(n_outputs: int, n_inputs: int, coef_bits: int) -> list[tuple[Part, int, int]]:
+    """(part, offset, size) of every field of LAYOUT for this shape."""
+    sizes = {"8N": 8 * n_outputs, "N": n_outputs, "C*N*M": coef_bits // 8 * n_outputs * n_inputs}
+    fields, offset = [], 0
+    for part in LAYOUT:
+        size = sizes.get(part.size, part.size)
+        fields.append((part, offset, size))
+        offset += size
+    return fields
+
+
 @dataclass(frozen=True)
 class Record:
     """A decoded record: plain values (see LAYOUT)."""

@@ -172,25 +172,19 @@ def record_facts(plan, interface) -> dict:
     record of the plan's own integers, which the self-test loads."""
     from affix import record
 
-    n, m, coef_bytes = len(plan.outputs), len(plan.inputs), plan.coef_bits // 8
-    sizes = {"8N": 8 * n, "N": n, "C*N*M": coef_bytes * n * m}
-    fields, offset = [], 0
-    for part in record.LAYOUT:
-        size = sizes.get(part.size, part.size)
-        fields.append({"name": part.name, "offset": offset, "size": size, "formula": str(part.size),
-                       "content": part.content})
-        offset += size
+    fields = [{"name": part.name, "offset": offset, "size": size, "formula": str(part.size), "content": part.content}
+              for part, offset, size in record.field_sizes(len(plan.outputs), len(plan.inputs), plan.coef_bits)]
     where = {f["name"]: f["offset"] for f in fields}
     sample = record.encode("selftest", plan.coefficients, plan.offsets, plan.shifts, coef_bits=plan.coef_bits,
                            acc_bits=plan.acc_bits, interface_id=int(interface.id, 16), data_sha256=None)
     return {
-        "bytes": offset,
+        "bytes": fields[-1]["offset"] + fields[-1]["size"],
         "fields": fields,
         "offset": where,
         "magic": list(record.MAGIC),
         "version": record.LAYOUT_VERSION,
         "unit_id_bytes": record.UNIT_ID_BYTES,
-        "coef_bytes": coef_bytes,
+        "coef_bytes": plan.coef_bits // 8,
         "reasons": [{"code": code, "name": name, "text": text} for code, name, text in record.REASONS],
         "reach": input_reach(plan.input_ranges),
         "acc_limit": get_target(plan.target).accumulator_limit(plan.acc_bits),
