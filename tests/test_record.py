@@ -303,3 +303,11 @@ def test_sanitizers_over_the_loader_fed_random_bytes(emitted, tmp_path):
     for line, data_k in loaded:
         expected_outputs = decode(data_k, emitted.contract).integer_estimator(emitted.contract).evaluate(ends)
         assert [int(v) for v in line.split()[1:]] == expected_outputs.ravel().tolist()
+
+
+def test_the_readme_shows_the_layout_the_code_reads():
+    """The README's table is rendered from the same definition as the header's and the codec's."""
+    readme = (Path(__file__).parent.parent / "README.md").read_text()
+    assert record.layout_table() in readme
+    for code, name, text in record.REASONS:
+        assert f"| {code} | `NAME_RECORD_E_{name.upper()}` | `{name}` | {text} |" in readme

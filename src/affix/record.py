@@ -84,6 +84,19 @@ class RecordError(FileFormatError):
         self.reason, self.code = reason, CODE[reason]
 
 
+def layout_table() -> str:
+    """LAYOUT as the Markdown table the README shows (offsets as formulas of N, M and C)."""
+    rows = ["| offset | bytes | field | content |", "|---:|---:|---|---|"]
+    offset = "0"
+    for part in LAYOUT:
+        rows.append(f"| {offset} | {part.size} | `{part.name}` | {part.content} |")
+        if isinstance(part.size, int) and offset.isdigit():
+            offset = str(int(offset) + part.size)
+        else:
+            offset = f"{offset} + {part.size}"
+    return "\n".join(rows)
+
+
 @dataclass(frozen=True)
 class Contract:
     """What a loader knows of its records: the interface's fingerprint, shape, widths, box and

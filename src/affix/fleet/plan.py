@@ -173,15 +173,20 @@ def _plan_units(models, box, widths, lsb, fixed_lsb, common, progress):
     workers = min(usable_cpus(), len(models) // _UNITS_PER_WORKER)
     if workers <= 1:
         return _plan_some(models, box, widths, lsb, fixed_lsb, common, progress)
-    slices = [models[k::workers] for k in range(workers)]
-    results = in_workers(_plan_some, [(part, box, widths, lsb, fixed_lsb, common, None) for part in slices])
     plans, unfit, coarser = {}, {}, set()
-    for more_plans, more_unfit, more_coarser in results:
-        plans.update(more_plans)
-        unfit.update(more_unfit)
-        coarser |= more_coarser
-    if progress is not None:
-        progress(len(models))
+    # Rounds of a few batches, one per worker, so progress can be shown between them.
+    step = _UNITS_PER_WORKER * workers
+    for start in range(0, len(models), step):
+        batch = models[start : start + step]
+        jobs = [(batch[k::workers], box, widths, lsb, fixed_lsb, common, None) for k in range(workers)]
+        for more_plans, more_unfit, more_coarser in in_workers(_plan_some, jobs):
+            plans.update(more_plans)
+            unfit.update(more_unfit)
+            coarser |= more_coarser
+        if coarser:
+            break
+        if progress is not None:
+            progress(start + len(batch))
     return plans, unfit, coarser
 
 
