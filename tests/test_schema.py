@@ -109,8 +109,10 @@ def real_files(tmp_path_factory):
     plan.save(paths["plan"])
     emit(plan, lang="all", name="probe", out_dir=folder / "int")
     emit(plan, lang="c", arith="float32", name="probe", out_dir=folder / "float32")
+    emit(plan, lang="all", name="probe", out_dir=folder / "record", coefficients="record")
     paths["manifest"] = folder / "int" / "probe.manifest.json"
     paths["float32 manifest"] = folder / "float32" / "probe.manifest.json"
+    paths["record manifest"] = folder / "record" / "probe.manifest.json"  # code that loads calibration records
     return {kind: json.loads(path.read_text()) for kind, path in paths.items()}
 
 
@@ -175,9 +177,11 @@ def _mutations(value):
 
 
 DELETE = object()
-KINDS = ("model", "plan", "manifest", "float32 manifest")
-SCHEMAS = {"model": MODEL_SCHEMA, "plan": PLAN_SCHEMA, "manifest": MANIFEST_SCHEMA, "float32 manifest": MANIFEST_SCHEMA}
-COMMAND = {"model": "quantize", "plan": "emit", "manifest": "verify", "float32 manifest": "verify"}
+KINDS = ("model", "plan", "manifest", "float32 manifest", "record manifest")
+SCHEMAS = {"model": MODEL_SCHEMA, "plan": PLAN_SCHEMA, "manifest": MANIFEST_SCHEMA, "float32 manifest": MANIFEST_SCHEMA,
+           "record manifest": MANIFEST_SCHEMA}
+COMMAND = {"model": "quantize", "plan": "emit", "manifest": "verify", "float32 manifest": "verify",
+           "record manifest": "verify"}
 
 
 def _marked(kinds):

@@ -69,7 +69,9 @@ def _names_are_emittable(values) -> None:
     records = values.get("interface", {}).get("coefficients") == "record"
     word = "_estimate_record" if records else "_estimate"
     if values["function"] != f"{values['name']}{word}":
-        schema.fail("function", f"must be {values['name']}{word}: the estimator's name (field 'name') and {word}")
+        source = "loaded from records" if records else "compiled"
+        schema.fail("function", f"must be {values['name']}{word}: the estimator's name (field 'name') and {word}, "
+                    f"for coefficients {source} (field 'interface')")
 
 
 def _files_agree(values) -> None:
