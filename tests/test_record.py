@@ -18,7 +18,6 @@ from affix import record
 from affix.arithmetic import INPUT_CTYPES
 from affix.emit.writer import emit
 from affix.emit.templates import render
-from affix.errors import UsageError
 from affix.interface import Interface
 from affix.record import CODE, Contract, RecordError, decode, encode
 from affix.verify.c_build import COMPILE_FLAGS, load_c

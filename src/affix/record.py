@@ -180,7 +180,7 @@ def encode(unit: str, coefficients, offsets, shifts, *, coef_bits: int, acc_bits
         raise UsageError(f"widths {coef_bits}/{acc_bits} are not plan widths", parameter="coef_bits")
     n, m = len(coefficients), len(coefficients[0]) if coefficients else 0
     if not (0 < n < 2**16 and 0 < m < 2**16) or len(offsets) != n or len(shifts) != n:
-        raise UsageError(f"a record holds 1 to 65535 outputs and inputs, one offset and shift per output",
+        raise UsageError("a record holds 1 to 65535 outputs and inputs, one offset and shift per output",
                          parameter="coefficients")
     digest = bytes.fromhex(data_sha256)[:HASH_PREFIX_BYTES] if data_sha256 else bytes(HASH_PREFIX_BYTES)
     body = MAGIC + struct.pack("<HBBIHH", LAYOUT_VERSION, coef_bits, acc_bits, interface_id, n, m)

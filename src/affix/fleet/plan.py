@@ -3,11 +3,14 @@
 The interface (widths, output type and lsb, input type and box) is what
 every unit's record must fit, since one firmware reads them all:
 
-- the widths and the output type are those in which the fleet's nominal
-  unit (the fit of every unit's rows together) meets the budget, cheapest on
-  the target first, as ``affix quantize`` chooses them for one model, unless
-  the project or the pinned interface fixes them.  An outlier never widens
-  the whole fleet's arithmetic: it misses its budget and is rejected;
+- the widths and the output type, unless the project or the pinned
+  interface fixes them: the search starts at those in which the fleet's
+  nominal unit (the fit of every unit's rows together) meets the budget,
+  cheapest on the target first, as ``affix quantize`` chooses them for one
+  model.  Where some units miss their budget there, the units that miss it
+  even in the widest configuration are rejects whatever the widths; the
+  cheapest configuration in which all the others pass is taken, if it lets
+  more units pass.  So an outlier never widens the whole fleet's arithmetic;
 - each output's lsb is the finest power of two at which every unit's
   output range over the box fits the output type and every unit's
   coefficients fit (the largest of the units' own finest lsbs), unless fixed;
@@ -21,8 +24,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from affix.fit.passes import in_workers, usable_cpus
 from affix.errors import NoConfigurationError, UsageError, parameter
+from affix.fit.passes import in_workers, usable_cpus
 from affix.plan import Plan
 from affix.quantize import plan_fixed_point
 from affix.quantize.box import resolve_per_name, resolve_ranges
