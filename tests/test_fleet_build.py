@@ -137,6 +137,16 @@ def test_build_json_hashes_every_record_and_the_report_shows_the_reject(built):
     page = (folder / "build" / "report.html").read_text()
     fleet = page[page.index('id="fleet"'):]
     assert "WR-0007" in fleet[: fleet.index("</section>")]
+    # Every number the page takes from fleet.csv is that cell, read back with the csv module.
+    import html5lib
+
+    rows = list(csv.DictReader((folder / "build" / "fleet.csv").open(newline="")))
+    document = html5lib.HTMLParser(strict=True, namespaceHTMLElements=False).parse(page)
+    cells = [e for e in document.findall(".//*[@data-source]") if e.get("data-source").startswith("fleet.csv#")]
+    assert cells
+    for element in cells:
+        line, column = element.get("data-source").partition("#")[2].split("/", 1)
+        assert float(element.get("data-value")) == float(rows[int(line.removeprefix("L")) - 2][column])
 
 
 def test_a_second_batch_builds_within_the_pinned_interface(built, tmp_path):
