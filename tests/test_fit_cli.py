@@ -11,7 +11,7 @@ import time
 
 import numpy as np
 import pytest
-from conftest import run_affix
+from conftest import require, run_affix
 
 from affix.model import Model
 
@@ -174,11 +174,12 @@ def test_several_files_fit_as_one_data_set_and_the_inputs_seen_are_shown(tmp_pat
     assert parts.n_samples == whole.n_samples == 90
     np.testing.assert_allclose(parts.gain, whole.gain, rtol=1e-12, atol=1e-12 * np.abs(whole.gain).max())
     np.testing.assert_array_equal(parts.input_min, whole.input_min)
-    # The digest of the digests, one per line: what `sha256sum part1.csv part2.csv | cut -c1-64 | sha256sum` prints.
-    import hashlib
-
-    digests = "".join(hashlib.sha256(p.read_bytes()).hexdigest() + "\n" for p in (first, second))
-    assert parts.data_sha256 == hashlib.sha256(digests.encode()).hexdigest()
+    # The hash of the files' names and digests in order: what GNU coreutils' sha256sum prints for
+    # `sha256sum part1.csv part2.csv | sha256sum`, run in their folder.
+    listing = subprocess.run([require("sha256sum"), "part1.csv", "part2.csv"], cwd=tmp_path, capture_output=True,
+                             check=True).stdout
+    hashed = subprocess.run([require("sha256sum")], input=listing, capture_output=True, check=True).stdout
+    assert parts.data_sha256 == hashed.split()[0].decode()
     summary = json.loads(result.stdout)
     y = np.loadtxt(data, delimiter=",", skiprows=1)[:, :3]  # numpy's own reading of the same rows
     assert summary["input_min"] == y.min(axis=0).tolist() and summary["input_max"] == y.max(axis=0).tolist()

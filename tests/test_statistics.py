@@ -4,7 +4,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from affix.statistics import Moments, accumulate, fold_of, merge_all, merge_folds
+from affix.statistics import Moments, accumulate, finish, fold_of, join, merge_all, merge_folds, run_of
+from affix.statistics.runs import TILE_ROWS
 
 
 def sample(rng, rows=10_000):
@@ -44,24 +45,64 @@ def test_pairwise_merge_of_shuffled_chunks_equals_one_pass():
     assert_same(sequential, Moments.of(rows))
 
 
-def test_fold_parts_do_not_depend_on_chunking_or_merge_order():
-    rng = np.random.default_rng(3)
-    rows = sample(rng)
-    whole = accumulate([rows], 4, 5)
-    cuts = np.sort(rng.choice(np.arange(1, len(rows)), size=25, replace=False))
-    starts = np.concatenate([[0], cuts])
-    pieces = [accumulate([chunk], 4, 5, first_row=start) for chunk, start in zip(np.split(rows, cuts), starts)]
-    rng.shuffle(pieces)
-    merged = pieces[0]
-    for piece in pieces[1:]:
-        merged = merge_folds(merged, piece)
-    for a, b in zip(merged, whole):
-        assert_same(a, b)
-    # Each fold's moments are those of exactly its rows.
-    labels = fold_of(0, len(rows), 5)
+def numbered_pieces(rows, valid, cuts, only=None):
+    """The rows cut at ``cuts``, each piece (or the one numbered ``only``) as a
+    ChunkStream numbers it: (first, count, valid rows, kept)."""
+    pieces = list(zip([0, *cuts], [*cuts, len(rows)]))
+    for start, stop in pieces if only is None else [pieces[only]]:
+        keep = valid[start:stop]
+        yield start, stop - start, rows[start:stop][keep], None if keep.all() else np.flatnonzero(keep), None
+
+
+def assert_identical(a: Moments, b: Moments):
+    assert a.count == b.count
+    for name in ("mean", "scatter", "low", "high"):
+        np.testing.assert_array_equal(getattr(a, name), getattr(b, name), err_msg=name)
+
+
+@pytest.mark.parametrize("seed", [3, 4, 5])
+def test_runs_of_any_parts_joined_in_any_grouping_give_the_same_bits(seed):
+    # The fixed merge tree of affix.statistics.runs: however a file is cut into
+    # parts and however their runs are joined, every merge has the same operands.
+    rng = np.random.default_rng(seed)
+    rows = sample(rng, rows=5 * TILE_ROWS + 1234)
+    valid = rng.random(len(rows)) > 0.01  # left-out rows keep their places
+    whole = finish(run_of(numbered_pieces(rows, valid, []), 4, 5, file_position=2))
+    cuts = sorted(set(rng.choice(np.arange(1, len(rows)), size=40, replace=False).tolist()) | {TILE_ROWS, 7, 8})
+    bounds = [0, *cuts, len(rows)]
+    runs = [run_of(numbered_pieces(rows, valid, [a, b], only=1), 4, 5, start=a, file_position=2)
+            for a, b in zip(bounds, bounds[1:])]
+    while len(runs) > 1:  # join a random adjacent pair until one run is left
+        i = int(rng.integers(len(runs) - 1))
+        runs[i : i + 2] = [join(runs[i], runs[i + 1])]
+    for a, b in zip(finish(runs[0]), whole):
+        assert_identical(a, b)
+    # Each fold holds exactly its valid rows: the rows of the file at position 2 start at group 2 of the pattern.
+    labels = fold_of(2 * 5, len(rows), 5)
     for f, part in enumerate(whole):
-        assert_same(part, Moments.of(rows[labels == f]))
-    assert_same(merge_all(whole, 4), Moments.of(rows))
+        assert_same(part, Moments.of(rows[valid & (labels == f)]))
+
+
+def test_chunking_does_not_change_a_bit():
+    rows = sample(np.random.default_rng(6), rows=3 * TILE_ROWS + 17)
+    valid = np.ones(len(rows), bool)
+    whole = finish(run_of(numbered_pieces(rows, valid, []), 4, 3))
+    for size in (100, 4096, TILE_ROWS + 1, 65536):
+        chunked = finish(run_of(numbered_pieces(rows, valid, list(range(size, len(rows), size))), 4, 3))
+        for a, b in zip(chunked, whole):
+            assert_identical(a, b)
+
+
+def test_files_too_short_to_fill_a_group_still_spread_over_every_fold():
+    # 300 files of 3 rows, 5 folds: were every file dealt from the same group, two folds would stay empty.
+    rng = np.random.default_rng(7)
+    parts = None
+    for position in range(300):
+        rows = rng.normal(size=(3, 2))
+        more = finish(run_of([(0, 3, rows, None, None)], 2, 5, file_position=position))
+        parts = more if parts is None else merge_folds(parts, more)
+    sizes = [p.count for p in parts]
+    assert sum(sizes) == 900 and min(sizes) >= 150
 
 
 def test_accumulate_over_a_stream_equals_the_whole():

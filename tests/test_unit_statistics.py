@@ -8,7 +8,7 @@ import pytest
 
 from affix.errors import DataError
 from affix.fit.passes import file_moments
-from affix.statistics import Moments, accumulate_units, fold_of, unit_shares
+from affix.statistics import Moments, accumulate, fold_of, unit_shares
 from affix.statistics.units import unit_order
 
 
@@ -40,7 +40,7 @@ def test_unit_moments_equal_numpy_per_unit_and_fold(interleaved):
     # Both ways of summing the products: one BLAS call per group (long runs of one unit) and the batched
     # outer products (many units interleaved row by row).
     values, labels = fleet_rows(np.random.default_rng(1), units=40 if interleaved else 6, interleaved=interleaved)
-    moments = accumulate_units([(values, labels, 0)], 4, 5)
+    moments = accumulate([(values, labels, 0)], 4, 5)
     assert set(moments.units) == set(labels)
     for unit in moments.units:
         assert_unit_matches_numpy(moments, unit, values, labels)
@@ -49,7 +49,7 @@ def test_unit_moments_equal_numpy_per_unit_and_fold(interleaved):
 def test_unit_moments_do_not_depend_on_chunking_or_merge_order():
     rng = np.random.default_rng(2)
     values, labels = fleet_rows(rng, interleaved=True)
-    whole = accumulate_units([(values, labels, 0)], 4, 5)
+    whole = accumulate([(values, labels, 0)], 4, 5)
     cuts = np.sort(rng.choice(np.arange(1, len(values)), size=17, replace=False))
     starts = np.concatenate([[0], cuts])
     pieces = [unit_shares(v, u, start, 5) for v, u, start in
@@ -152,7 +152,7 @@ def test_array_file_unit_ids_are_whole_numbers(tmp_path):
 
 def test_one_unit_merged_equals_the_moments_of_its_rows():
     values, labels = fleet_rows(np.random.default_rng(5), units=3)
-    moments = accumulate_units([(values, labels, 0)], 4, 0)
+    moments = accumulate([(values, labels, 0)], 4, 0)
     assert moments.folds == 1
     for unit in moments.units:
         (part,) = moments.moments(unit)

@@ -56,6 +56,18 @@ class AffixError(Exception):
     def format_message(self, spell: Callable[[str], str] = lambda name: name) -> str:
         return f"affix: error: {self.render(spell)}"
 
+    def __reduce__(self):
+        # Errors travel between processes (worker processes, a Dask cluster) as
+        # values: rebuild them whole, parameters still marked, not from args.
+        return _rebuilt, (type(self), self.__dict__)
+
+
+def _rebuilt(cls, state):
+    error = cls.__new__(cls)
+    error.__dict__.update(state)
+    Exception.__init__(error, error.message)
+    return error
+
 
 class UsageError(AffixError):
     """An argument value is wrong; ``parameter`` names the argument (the CLI shows its option)."""
@@ -86,6 +98,11 @@ class DataError(AffixError):
             where.append(f"column '{column}'")
         super().__init__(": ".join([", ".join(where), message]) if where else message)
         self.path, self.row, self.column, self.line = path, row, column, line
+        self.reason = message
+
+    def at(self, path) -> "DataError":
+        """The same error about the file named ``path`` (a worker opened it by another name)."""
+        return type(self)(self.reason, path, row=self.row, column=self.column, line=self.line)
 
 
 class WriteError(AffixError):

@@ -17,10 +17,12 @@ import numpy as np
 from affix.errors import DataError, FitError, UsageError, parameter
 from affix.fit import conditioning
 from affix.fit.adopt import adopt, default_names, is_fitted_linear
-from affix.fit.passes import file_moments, merge_parts, stream_moments
+from affix.fit.blocks import Pass
+from affix.fit.engines import engine_for
+from affix.fit.passes import stream_moments
 from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
 from affix.intake import from_array
-from affix.intake.digest import combined
+from affix.intake.sources import data_files
 from affix.model import Model
 from affix.statistics import MAX_FOLDS, merge_all
 
@@ -43,14 +45,17 @@ def fit(
     folds: int = 5,
     drop_invalid: bool = False,
     chunk_rows: int | None = None,
+    engine="local",
 ) -> Model:
     """Fit x_hat = gain @ y + offset by least squares.
 
     ``data`` is one of
-      * a path to a CSV (columns by header name), .npy or .npz file -- see
-        :mod:`affix.intake`; ``inputs`` and ``outputs`` name the columns;
+      * a path to a CSV (columns by header name), .npy, .npz or Parquet file,
+        a glob pattern or a Parquet dataset folder -- see :mod:`affix.intake`;
+        ``inputs`` and ``outputs`` name the columns;
       * a list of such paths, fitted as one data set (``data_sha256`` is
-        then the digest of their digests, see :func:`affix.intake.digest.combined`);
+        then the hash of their names and digests, see
+        :func:`affix.intake.sources.data_hash`);
       * a mapping of column name -> values (a dict of arrays, a pandas DataFrame);
       * a pair ``(y, x)`` of arrays, rows are samples; names default to
         y1.. and x1..;
@@ -62,14 +67,21 @@ def fit(
     ``folds`` = 0 skips cross-validation.  With ``drop_invalid`` rows holding
     NaN, infinities or empty cells are left out (counted in ``dropped_rows``);
     otherwise they are an error.
+
+    ``engine`` runs the pass over files: "local" (this machine), "dask" (a
+    Dask cluster started on this machine for the fit), or an engine object
+    such as ``affix.fit.dask_engine.DaskEngine(scheduler="tcp://host:8786")``.
+    Every engine gives the same model, to the last bit on machines with the
+    same NumPy.
     """
     if is_fitted_linear(data):
         return adopt(data, inputs, outputs)
     folds = check_arguments(ridge, folds)
+    engine_for(engine)  # checked before any work
     inputs, outputs, paths, values = _open(data, inputs, outputs)
     width = len(inputs) + len(outputs)
     if paths is not None:
-        parts, dropped, sha256 = files_moments(paths, inputs + outputs, folds, chunk_rows, drop_invalid)
+        parts, dropped, sha256 = files_moments(paths, inputs + outputs, folds, chunk_rows, drop_invalid, engine=engine)
     else:
         stream = from_array(values, inputs + outputs, chunk_rows=chunk_rows, drop_invalid=drop_invalid)
         parts, dropped, sha256 = stream_moments(stream, width, folds), stream.rows_dropped, None
@@ -126,17 +138,12 @@ def model_from_parts(parts, inputs, outputs, *, ridge, folds, data_sha256, dropp
     )
 
 
-def files_moments(paths, columns, folds, chunk_rows, drop_invalid, labels=None):
+def files_moments(paths, columns, folds, chunk_rows, drop_invalid, labels=None, engine="local"):
     """Per-fold moments of several files as one data set (UnitMoments with a unit column ``labels``):
-    (parts, rows dropped, data_sha256).  Each file's rows are dealt to the folds from its first."""
-    parts, dropped, digests = None, 0, []
-    for path in paths:
-        more, count, sha256 = file_moments(path, columns, folds, chunk_rows=chunk_rows, drop_invalid=drop_invalid,
-                                           labels=labels)
-        parts = more if parts is None else merge_parts(parts, more)
-        dropped += count
-        digests.append(sha256)
-    return parts, dropped, combined(digests)
+    (parts, rows dropped, data_sha256), from the pass the ``engine`` runs (see :func:`fit`).
+    ``paths`` are files, or any entries :func:`affix.intake.sources.data_files` takes."""
+    settings = Pass(tuple(columns), folds, drop_invalid, chunk_rows, labels)
+    return engine_for(engine).moments(data_files(paths), settings)
 
 
 def _open(data, inputs, outputs):
@@ -144,7 +151,7 @@ def _open(data, inputs, outputs):
     if isinstance(data, (str, os.PathLike)) or _is_path_list(data):
         if inputs is None or outputs is None:
             raise UsageError("fitting a file needs the names of its input and output columns")
-        paths = [data] if isinstance(data, (str, os.PathLike)) else list(data)
+        paths = data_files([data] if isinstance(data, (str, os.PathLike)) else list(data))
         return (*check_names(inputs, outputs), paths, None)
     if isinstance(data, Mapping) or hasattr(data, "columns"):
         if inputs is None or outputs is None:

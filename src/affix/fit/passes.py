@@ -1,10 +1,12 @@
-"""The one pass over a data file, split across processes for large CSV files.
+"""The one pass over the data files on this machine, a large CSV split across processes.
 
 Parsing text is what a fit spends its time on, so a large CSV is cut into
 byte ranges of whole lines, one per CPU, and each worker process reduces its
-range to per-fold moments.  Folds follow the global row index, so the merged
-result is the same as one sequential pass (up to rounding).  The digest of
-the whole file runs in a thread of the parent while it prepares the workers.
+range to a run of per-fold moments (affix.fit.blocks).  Rows keep their
+places in the file, so the result is the same to the last bit as one
+sequential pass.  The digest of the whole file runs in a thread of the parent
+while it prepares the workers.  Files are read one after the other, each
+checked to the end before the next, and the first error ends the pass.
 """
 from __future__ import annotations
 
@@ -12,13 +14,12 @@ import os
 import signal
 import traceback
 
-from threadpoolctl import threadpool_limits
-
 from affix.errors import AffixError
-from affix.intake import partition, read_chunks, splittable
+from affix.fit.blocks import (Pass, Result, block_outcome, blocks_of, finish_file, join_outcomes, merge_results,
+                              outcome_of, stream_run, tree)
+from affix.intake import check_columns, partition, splittable
 from affix.intake.digest import FileDigest
-from affix.intake.stream import check_invalid
-from affix.statistics import UnitMoments, accumulate, accumulate_units, merge_folds
+from affix.statistics import finish
 
 PARALLEL_MIN_BYTES = 32 << 20  # below this, starting processes costs more than it saves
 
@@ -28,34 +29,62 @@ def usable_cpus() -> int:
 
 
 def file_moments(path, columns, folds, *, chunk_rows, drop_invalid, workers=None, labels=None):
-    """Per-fold moments of the chosen columns and what the pass found:
-    (parts, rows_dropped, sha256).  Raises DataError for invalid rows unless drop_invalid.
-    With ``labels`` (the unit column) the parts are UnitMoments, per unit and fold."""
-    stream = read_chunks(path, columns, chunk_rows=chunk_rows, drop_invalid=drop_invalid, labels=labels)  # checks names first
-    if workers is None:
-        workers = usable_cpus() if os.path.getsize(path) >= PARALLEL_MIN_BYTES else 1
-    if workers == 1 or not splittable(path):
-        return stream_moments(stream, len(columns), folds), stream.rows_dropped, stream.sha256
-    # The digest runs on another CPU while partition() loads pandas for the
-    # workers, rather than later against them; it must be done before they fork.
-    digest = FileDigest(path)
-    ranges = partition(path, workers)
-    digest.wait()
-    results = in_workers(_part_moments, [(path, columns, folds, chunk_rows, part, labels) for part in ranges])
-    sha256 = digest.hexdigest()  # after the workers' reads: it checks that the file did not change meanwhile
-    parts, dropped, first_invalid = results[0]
-    for more, count, first in results[1:]:
-        parts, dropped = merge_parts(parts, more), dropped + count
-        first_invalid = first_invalid or first
-    if not drop_invalid:
-        check_invalid(path, dropped, first_invalid)
-    return parts, dropped, sha256
+    """Per-fold moments of one file's chosen columns and what the pass found: (parts,
+    rows_dropped, sha256), on this machine in ``workers`` processes (see LocalEngine).
+    Raises DataError for invalid rows unless drop_invalid.  With ``labels`` (the unit
+    column) the parts are UnitMoments, per unit and fold."""
+    return LocalEngine(workers).moments([path], Pass(tuple(columns), folds, drop_invalid, chunk_rows, labels))
+
+
+def stream_moments(stream, width: int, folds: int):
+    """Per-fold moments of one ChunkStream of a whole file or of data in memory; UnitMoments
+    for a stream with a unit column."""
+    return finish(stream_run(stream, width, folds))
+
+
+class LocalEngine:
+    """The pass on this machine: files in order, a large CSV in one process per CPU
+    (``workers``: how many; by default as many as there are CPUs, for files of
+    PARALLEL_MIN_BYTES and more)."""
+
+    def __init__(self, workers: int | None = None):
+        self.workers = workers
+
+    def moments(self, paths, settings: Pass):
+        """(per-fold moments, rows left out, data hash) of the files, in order."""
+        for path in paths:  # every file's columns, before any row is read
+            check_columns(path, settings.read_columns)
+        results = []
+        for position, path in enumerate(paths):
+            results.append(self.file_result(position, path, settings))
+            if results[-1].error is not None:
+                break
+        return outcome_of(tree(results, merge_results))
+
+    def file_result(self, position: int, path, settings: Pass) -> Result:
+        workers = self.workers
+        if workers is None:
+            workers = usable_cpus() if os.path.getsize(path) >= PARALLEL_MIN_BYTES else 1
+        if workers == 1 or not splittable(path):
+            (block,) = blocks_of(position, path, None)
+            return finish_file(block_outcome(block, settings), None, path, settings)
+        # The digest runs on another CPU while partition() loads pandas for the
+        # workers, rather than later against them; it must be done before they fork.
+        digest = FileDigest(path)
+        blocks = blocks_of(position, path, partition(path, workers))
+        digest.wait()
+        outcome = tree(in_workers(block_outcome, [(block, settings) for block in blocks]), join_outcomes)
+        try:
+            sha256 = digest.hexdigest()  # after the workers' reads: it checks that the file did not change meanwhile
+        except AffixError as exc:
+            sha256 = exc
+        return finish_file(outcome, sha256, path, settings)
 
 
 def in_workers(function, jobs) -> list:
-    """function(*job) for each job, in one forked process each; the
-    results in job order, so the first error raised is the first in the file,
-    as in one pass.
+    """function(*job) for each job, in one forked process each; the results in
+    job order (an AffixError raised in a worker is raised here, the first in
+    job order; block_outcome returns them as values instead).
 
     A terminal sends Ctrl-C's SIGINT to every process of its group: workers
     ignore it and leave it to this process, whose KeyboardInterrupt (like any
@@ -106,23 +135,3 @@ def _worker(send, function, job):
     except BaseException as exc:  # a bug: its traceback goes to the parent, whose stderr the user sees
         send.send((False, RuntimeError("in a worker process:\n" + "".join(traceback.format_exception(exc)))))
 
-
-def _part_moments(path, columns, folds, chunk_rows, part, labels):
-    stream = read_chunks(path, columns, chunk_rows=chunk_rows, drop_invalid=True, part=part, labels=labels)
-    return stream_moments(stream, len(columns), folds), stream.rows_dropped, stream.first_invalid
-
-
-def stream_moments(stream, width, folds):
-    """Per-fold moments of one ChunkStream; UnitMoments for a stream with a unit column."""
-    # The products here are skinny (rows x a few columns): one BLAS thread
-    # does them at memory speed, and more would spin against the threads that
-    # parse and hash the file, which on a small machine costs many times over.
-    with threadpool_limits(limits=1, user_api="blas"):
-        if stream.label_column is not None:
-            return accumulate_units(stream, width, folds)
-        return accumulate(stream, width, folds, first_row=stream.first_row)
-
-
-def merge_parts(a, b):
-    """Two passes' results merged: per-fold lists of Moments, or UnitMoments."""
-    return a.merge(b) if isinstance(a, UnitMoments) else merge_folds(a, b)

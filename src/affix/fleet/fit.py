@@ -19,6 +19,7 @@ from affix.errors import AffixError, DataError, UsageError, parameter
 from affix.fit.estimator import CollinearityWarning, check_arguments, check_names, files_moments, model_from_parts
 from affix.fit.passes import stream_moments
 from affix.intake import from_array
+from affix.intake.sources import data_files
 from affix.model import Model
 from affix.statistics import merge_all
 from affix.unit_ids import case_clashes
@@ -53,10 +54,13 @@ class FleetFit:
 
 
 def fit_fleet(data, inputs, outputs, unit_column: str, *, ridge: float = 0.0, folds: int = 5,
-              drop_invalid: bool = False, skip_bad_units: bool = False, chunk_rows: int | None = None) -> FleetFit:
-    """Fit every unit of ``data``: a path or list of paths (as :func:`affix.fit`), or a mapping of
-    columns holding ``unit_column`` too.  Every other argument means what it means for
-    :func:`affix.fit`; a unit that cannot be fitted is an error naming it, unless ``skip_bad_units``."""
+              drop_invalid: bool = False, skip_bad_units: bool = False, chunk_rows: int | None = None,
+              engine="local") -> FleetFit:
+    """Fit every unit of ``data``: a path or list of paths, patterns and Parquet dataset folders (as
+    :func:`affix.fit`), or a mapping of columns holding ``unit_column`` too.  Every other argument
+    means what it means for :func:`affix.fit` (the ``engine`` gathers every unit's statistics, on
+    Dask grouped on the unit column in each block and merged per unit); a unit that cannot be
+    fitted is an error naming it, unless ``skip_bad_units``."""
     if not isinstance(unit_column, str) or not unit_column:
         raise UsageError(f"must name the column of unit ids, got {unit_column!r}", parameter="unit_column")
     folds = check_arguments(ridge, folds)
@@ -73,8 +77,9 @@ def fit_fleet(data, inputs, outputs, unit_column: str, *, ridge: float = 0.0, fo
                             units=np.asarray(data[unit_column]))
         parts, dropped, sha256, path = stream_moments(stream, len(columns), folds), stream.rows_dropped, None, None
     else:
-        paths = [data] if isinstance(data, (str, bytes)) or hasattr(data, "__fspath__") else list(data)
-        parts, dropped, sha256 = files_moments(paths, columns, folds, chunk_rows, drop_invalid, labels=unit_column)
+        paths = data_files([data] if isinstance(data, (str, bytes)) or hasattr(data, "__fspath__") else list(data))
+        parts, dropped, sha256 = files_moments(paths, columns, folds, chunk_rows, drop_invalid, labels=unit_column,
+                                               engine=engine)
         path = paths[0] if len(paths) == 1 else None
     clash = case_clashes(parts.units)
     if clash:

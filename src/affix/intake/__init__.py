@@ -1,4 +1,4 @@
-"""Intake: read calibration data (CSV, .npy, .npz) in bounded-memory chunks.
+"""Intake: read calibration data (CSV, .npy, .npz, Parquet) in bounded-memory chunks.
 
 Formats, chosen by the file suffix:
 
@@ -6,11 +6,15 @@ Formats, chosen by the file suffix:
 * ``.npz`` -- 1-D arrays of equal length, each a column named by its key
   (``np.savez("cal.npz", b1=..., Fx=...)``); or a single 2-D array, read
   like a .npy.
+* ``.parquet``, ``.parq`` -- columns by name, read with pyarrow (the
+  ``parquet`` extra).
 * anything else -- CSV with a header line; columns are named by the header.
 
 Messages name a CSV row by its line as an editor shows it (the header is
-line 1, the first data row line 2), and a row of an array file by its number
-counted from 1, as those have no lines.
+line 1, the first data row line 2), and a row of the other formats by its
+number counted from 1, as those have no lines.  Which files a list of
+names, glob patterns and Parquet dataset folders means is
+:func:`affix.intake.sources.data_files`.
 """
 from __future__ import annotations
 
@@ -20,10 +24,12 @@ from pathlib import Path
 import numpy as np
 
 from affix.errors import DataError, UsageError
-from affix.intake import array_format, csv_format
+from affix.intake import array_format, csv_format, parquet_format
+from affix.intake.parts import Part
 from affix.intake.stream import ChunkStream
 
-__all__ = ["ChunkStream", "column_names", "from_array", "partition", "read_chunks", "read_files", "splittable"]
+__all__ = ["ChunkStream", "Part", "check_columns", "column_names", "count_rows", "from_array", "partition",
+           "read_chunks", "read_files", "splittable"]
 
 
 def column_names(path) -> list[str]:
@@ -33,8 +39,8 @@ def column_names(path) -> list[str]:
     return _format(path).column_names(path)
 
 
-def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False, part=None,
-                labels: str | None = None) -> ChunkStream:
+def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False, part: Part | None = None,
+                first_row: int | None = None, labels: str | None = None) -> ChunkStream:
     """The chosen columns of the file as one pass of float64 chunks (see ChunkStream).
 
     Chunks hold at most ``chunk_rows`` rows; by default as many as the format
@@ -42,62 +48,76 @@ def read_chunks(path, columns, *, chunk_rows: int | None = None, drop_invalid: b
 
     Missing files and columns, ambiguous names and unreadable headers are
     reported here, before any row is read; cell-level problems during the pass.
-    ``part``, one of :func:`partition`'s ranges, reads only that part of the
-    file (without the digest, which covers whole files).  ``labels`` names a
-    column of unit ids: the stream then yields labelled chunks (see ChunkStream).
+    ``part``, one of :func:`partition`'s parts, reads only that part of the
+    file (without the digest, which covers whole files); ``first_row`` is the
+    number of rows before it where the part does not know it (counted here
+    when not given: see :func:`count_rows`).  ``labels`` names a column of
+    unit ids: the stream then yields labelled chunks (see ChunkStream).
     """
     path = _existing(path)
     columns = list(columns)
     fmt = _format(path)
-    available = fmt.column_names(path)
-    for name in columns + ([] if labels is None else [labels]):
+    check_columns(path, columns + ([] if labels is None else [labels]))
+    if labels is not None and labels in columns:
+        raise UsageError(f"the unit column '{labels}' cannot also be an input or output", parameter="unit_column")
+    chunk_rows = _chunk_rows(chunk_rows, fmt.CHUNK_ROWS)
+    first_line = csv_format.FIRST_DATA_LINE if fmt is csv_format else None
+    span, options = None, {}
+    if part is not None:
+        if part.first_row is not None:
+            first_row = part.first_row
+        elif first_row is None:
+            first_row = csv_format.rows_before(path, part.span[0])
+        span, options = part.span, {"first_row": first_row, "digest": False}
+    raw = fmt.raw_chunks(path, columns, chunk_rows, span=span, first_row=first_row or 0, labels=labels)
+    return ChunkStream(path, columns, raw, drop_invalid, first_line=first_line, label_column=labels, **options)
+
+
+def check_columns(path, columns) -> None:
+    """DataError unless the file offers each of ``columns`` exactly once."""
+    available = _format(_existing(path)).column_names(path)
+    for name in columns:
         count = available.count(name)
         if not count:
             raise DataError(f"no column '{name}' (available: {_listing(available)})", path)
         if count > 1:
             raise DataError(f"the header names column '{name}' {count} times, so it is ambiguous", path)
-    if labels is not None and labels in columns:
-        raise UsageError(f"the unit column '{labels}' cannot also be an input or output", parameter="unit_column")
-    chunk_rows = _chunk_rows(chunk_rows, fmt.CHUNK_ROWS)
-    first_line = csv_format.FIRST_DATA_LINE if fmt is csv_format else None
-    first_row, options = 0, {}
-    if part is not None:
-        first_row = csv_format.rows_before(path, part[0])
-        options = {"first_row": first_row, "digest": False}
-    if fmt is csv_format:
-        raw = csv_format.raw_chunks(path, columns, chunk_rows, byte_range=part, rows_skipped=first_row, labels=labels)
-    elif labels is None:
-        raw = fmt.raw_chunks(path, columns, chunk_rows)
-    else:  # an array file's unit column is one more column of numbers, split off by the stream
-        raw = fmt.raw_chunks(path, columns + [labels], chunk_rows)
-    return ChunkStream(path, columns, raw, drop_invalid, first_line=first_line, label_column=labels, **options)
 
 
-def read_files(paths, columns, *, drop_invalid: bool = False, labels: str | None = None):
-    """The chosen columns of several files, one after the other, as one iterable of float64 chunks
-    (a single file's own ChunkStream, whose ``path`` messages can name); labelled chunks with ``labels``.
+def read_files(entries, columns, *, drop_invalid: bool = False, labels: str | None = None):
+    """The chosen columns of the files that ``entries`` name (files, glob patterns,
+    Parquet dataset folders: see :func:`affix.intake.sources.data_files`), one after
+    the other, as one iterable of float64 chunks (a single file's own ChunkStream,
+    whose ``path`` messages can name); labelled chunks with ``labels``.
 
     Every file and its column names are checked here, before any row is read."""
-    streams = [read_chunks(path, columns, drop_invalid=drop_invalid, labels=labels) for path in paths]
+    from affix.intake.sources import data_files
+
+    streams = [read_chunks(path, columns, drop_invalid=drop_invalid, labels=labels) for path in data_files(entries)]
     return streams[0] if len(streams) == 1 else itertools.chain.from_iterable(streams)
 
 
 def splittable(path) -> bool:
-    """Whether :func:`partition` can split the file: CSV only, as reading the
-    other formats costs too little to split."""
+    """Whether splitting the file into parts read in parallel pays on one machine: CSV
+    only, as parsing text is slow and reading the other formats costs too little."""
     return _format(_existing(path)) is csv_format
 
 
-def partition(path, parts: int) -> list:
-    """Ranges that split a CSV file's rows into up to ``parts`` pieces that can
-    be read in parallel (``read_chunks(..., part=range)``); [None] (the whole
-    file) for other formats."""
+def partition(path, parts: int) -> list[Part]:
+    """Up to ``parts`` parts that together cover the file's rows, each to be
+    read on its own (``read_chunks(..., part=part)``), in file order: byte
+    ranges of whole lines of a CSV, row ranges of a .npy, runs of row groups
+    of a Parquet file; a .npz is one part."""
     path = _existing(path)
-    if not splittable(path):
-        return [None]
-    import pandas  # noqa: F401 -- loaded once here, so worker processes forked next share it
+    fmt = _format(path)
+    if fmt is csv_format:
+        import pandas  # noqa: F401 -- loaded once here, so worker processes forked next share it
+    return fmt.partition(path, max(1, parts))
 
-    return csv_format.partition(path, parts)
+
+def count_rows(path, part: Part) -> int:
+    """The data rows in a part of a CSV file (its lines); what the parts after it need to know where they start."""
+    return csv_format.count_rows(path, part.span)
 
 
 def from_array(values, columns, *, chunk_rows: int | None = None, drop_invalid: bool = False,
@@ -142,4 +162,7 @@ def _existing(path) -> Path:
 
 
 def _format(path: Path):
-    return array_format if path.suffix.lower() in (".npy", ".npz") else csv_format
+    suffix = path.suffix.lower()
+    if suffix in (".npy", ".npz"):
+        return array_format
+    return parquet_format if suffix in parquet_format.SUFFIXES else csv_format

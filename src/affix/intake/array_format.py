@@ -25,6 +25,7 @@ import numpy as np
 
 from affix.errors import DataError
 from affix.intake.digest import FileDigest
+from affix.intake.parts import Part
 
 # Rows per read: the statistics' block size (affix.statistics.folds.BLOCK_ROWS),
 # so a block read stays in the CPU cache while the statistics work through it.
@@ -40,16 +41,43 @@ def column_names(path) -> Sequence[str]:
         return _names(_open_sources(path, stack))
 
 
-def raw_chunks(path, columns, chunk_rows):
+def raw_chunks(path, columns, chunk_rows, span=None, first_row=0, labels=None):
     """Float64 chunks (k, len(columns)) of the chosen columns, in file order.
 
-    A .npy file gives a :class:`HashedRows`, which reads the file once for
-    both its rows and its SHA-256; a .npz, whose digest is of the archive
-    and not of the arrays, a plain generator.
+    A whole .npy file gives a :class:`HashedRows`, which reads the file once
+    for both its rows and its SHA-256; a .npz, whose digest is of the archive
+    and not of the arrays, a plain generator; ``span``, the rows [start, end)
+    of a .npy file (a :func:`partition` part), a plain generator of those.
+    An array file's unit column (``labels``) is one more column of numbers,
+    the last, which the stream splits off.
     """
+    columns = list(columns) + ([] if labels is None else [labels])
+    if span is not None:
+        return _row_range(path, columns, chunk_rows, span)
     if not _is_npz(path):
         return HashedRows(path, columns, chunk_rows)
     return _archive_chunks(path, columns, chunk_rows)
+
+
+def partition(path, parts: int) -> list[Part]:
+    """Up to ``parts`` row ranges of a .npy file; a .npz (compressed members
+    cannot be entered midway) is one part, the whole file."""
+    if _is_npz(path):
+        return [Part(None, 0, os.path.getsize(path))]
+    (source,) = _open_sources(path, None)
+    cuts = sorted({source.rows * i // parts for i in range(parts)})
+    ends = cuts[1:] + [source.rows]
+    return [Part((a, b), a, (b - a) * source.row_bytes) for a, b in zip(cuts, ends) if b > a or source.rows == 0]
+
+
+def _row_range(path, columns, chunk_rows, span):
+    with ExitStack() as stack:
+        (source,) = _open_sources(path, stack)
+        positions = [source.names.index(name) for name in columns]
+        source.open(stack, first_row=span[0])
+        chunk_rows = _rows_per_read(chunk_rows, source.row_bytes)
+        for start in range(span[0], span[1], chunk_rows):
+            yield _as_chunk(source.read(min(chunk_rows, span[1] - start)), positions)
 
 
 class HashedRows:
@@ -193,11 +221,11 @@ class _Source:
         self.row_bytes = max(1, self.width * dtype.itemsize)
         self.header_bytes = header_bytes
 
-    def open(self, stack) -> None:
-        """Open the stored bytes again, at the first row, for :meth:`read`."""
+    def open(self, stack, first_row: int = 0) -> None:
+        """Open the stored bytes again, at ``first_row``, for :meth:`read`."""
         try:
             self.stream = stack.enter_context(self.opener())
-            self.stream.seek(self.header_bytes)
+            self.stream.seek(self.header_bytes + first_row * self.row_bytes)
         except (*_READ_ERRORS, NotImplementedError, RuntimeError) as exc:
             raise DataError(f"cannot read array{_of(self.key)} ({_one_line(exc)})", self.path) from None
 

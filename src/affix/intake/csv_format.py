@@ -24,6 +24,7 @@ import re
 import numpy as np
 
 from affix.errors import DataError
+from affix.intake.parts import Part
 
 CHUNK_ROWS = 1 << 16  # pandas' per-chunk overhead is small against this many rows
 MISSING = ["", "nan", "NaN", "NAN"]
@@ -65,8 +66,9 @@ def _header_line(path) -> bytes:
     return line
 
 
-def partition(path, parts: int) -> list[tuple[int, int]]:
-    """Up to ``parts`` byte ranges of whole lines that together cover the data rows."""
+def partition(path, parts: int) -> list[Part]:
+    """Up to ``parts`` pieces of whole lines that together cover the data rows;
+    the rows before each are counted when it is read (:func:`count_rows`)."""
     start, size = data_start(path), os.path.getsize(path)
     cuts = [start]
     with open(path, "rb") as f:
@@ -75,25 +77,31 @@ def partition(path, parts: int) -> list[tuple[int, int]]:
             f.readline()  # move on to the start of the next line
             if cuts[-1] < f.tell() < size:
                 cuts.append(f.tell())
-    return list(zip(cuts, cuts[1:] + [size]))
+    return [Part((a, b), 0 if a == start else None, b - a) for a, b in zip(cuts, cuts[1:] + [size])]
 
 
 def rows_before(path, offset: int) -> int:
     """How many data rows lie before byte ``offset`` (a line start)."""
-    start, count = data_start(path), 0
+    return count_rows(path, (data_start(path), offset))
+
+
+def count_rows(path, span) -> int:
+    """How many lines start in bytes [start, end) of the file (whole lines: every one ends in a line break)."""
+    start, end = span
+    count = 0
     block = np.empty(_BLOCK, np.uint8)  # one buffer; NumPy counts in it about 3x faster than bytes.count
     with open(path, "rb", buffering=0) as f:
         f.seek(start)
-        while size := f.readinto(block[: min(_BLOCK, offset - f.tell())]):
+        while size := f.readinto(block[: min(_BLOCK, end - f.tell())]):
             count += int(np.count_nonzero(block[:size] == ord("\n")))
     return count
 
 
-def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0, labels=None):
+def raw_chunks(path, columns, chunk_rows, span=None, first_row=0, labels=None):
     """Float64 arrays (k, len(columns)) in file order; NaN marks missing cells.
 
-    ``byte_range`` (from :func:`partition`) reads only those lines, which
-    follow ``rows_skipped`` data rows; by default all data lines.  Errors name
+    ``span`` (of a :func:`partition` part) reads only those lines, which
+    follow ``first_row`` data rows; by default all data lines.  Errors name
     the line as an editor numbers it.  With ``labels`` (a column name, not
     one of ``columns``), pairs (values, labels): that column's cells as text,
     exactly as written (a unit id "0042" stays "0042"), NaN where empty.
@@ -106,8 +114,8 @@ def raw_chunks(path, columns, chunk_rows, byte_range=None, rows_skipped=0, label
     used = sorted(set(positions))
     order = [used.index(p) for p in positions]
     text = {} if label_position is None else {label_position: str}
-    start, end = byte_range or (data_start(path), os.path.getsize(path))
-    line = first_line = FIRST_DATA_LINE + rows_skipped
+    start, end = span or (data_start(path), os.path.getsize(path))
+    line = first_line = FIRST_DATA_LINE + first_row
     if start >= end:
         return  # a header and no rows: the caller reports too few rows
     lines = io.BufferedReader(_ByteRange(path, start, end), _BLOCK)
@@ -179,7 +187,7 @@ def _numeric(frame, path, first_line, names) -> np.ndarray:
         if bad.any():
             i = int(np.argmax(bad))
             cell = str(column.iloc[i])
-            message = _NUL_BYTES if "\0" in cell else f"not a number: {_shown(cell)}"
+            message = _NUL_BYTES if "\0" in cell else f"not a number: {quoted(cell)}"
             raise DataError(message, path, line=first_line + i, column=name)
         frame.isetitem(position, converted)
     return frame.to_numpy(dtype=np.float64)
@@ -208,7 +216,7 @@ def _unreadable(path, start, end, first_line) -> DataError | None:
     return None
 
 
-def _shown(cell: str) -> str:
+def quoted(cell: str) -> str:
     """A cell as the message quotes it: repr, and cut short (a runaway cell can be megabytes)."""
     return repr(cell) if len(cell) <= _SHOWN else repr(cell[:_SHOWN]) + f"... ({len(cell)} characters)"
 

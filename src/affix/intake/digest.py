@@ -37,6 +37,13 @@ def identity(path) -> tuple:
     return s.st_dev, s.st_ino, s.st_size, s.st_mtime_ns
 
 
+def stamp(path) -> tuple[int, int]:
+    """Size and modification time: what changes with a file's content, and reads
+    the same on every machine that mounts it (device and inode numbers need not)."""
+    s = os.stat(path)
+    return s.st_size, s.st_mtime_ns
+
+
 class FileDigest:
     """Start hashing ``path`` now; :meth:`hexdigest` waits for the result.
 
@@ -129,19 +136,15 @@ class FileDigest:
         except OSError:
             unchanged = False
         if not unchanged:
-            raise DataError(
-                "the file changed while it was read, so the fit and its SHA-256 could disagree; "
-                "fit a copy that nothing writes to",
-                self._path,
-            )
+            raise changed(self._path)
         return self._sha.hexdigest()
 
 
-def combined(digests) -> str:
-    """One digest for data read from several files: a single file's own
-    SHA-256, else the SHA-256 of the files' hex digests, one per line in the
-    order the files were read (``sha256sum FILES | cut -c1-64 | sha256sum``)."""
-    digests = list(digests)
-    if len(digests) == 1:
-        return digests[0]
-    return hashlib.sha256("".join(f"{d}\n" for d in digests).encode()).hexdigest()
+def changed(path) -> DataError:
+    """The error for a file that changed while it was read."""
+    return DataError(
+        "the file changed while it was read, so the fit and its SHA-256 could disagree; fit a copy that nothing "
+        "writes to",
+        path,
+    )
+

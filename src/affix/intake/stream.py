@@ -60,6 +60,20 @@ class ChunkStream:
         return {"row": index + 1} if self.first_line is None else {"line": self.first_line + index}
 
     def __iter__(self):
+        for first, _, rows, kept, units in self.numbered():
+            if not len(rows):
+                continue
+            if units is None:
+                yield rows
+            else:  # what affix.statistics.unit_shares takes: rows placed by their index in the file
+                yield rows, units, first if kept is None else first + kept
+
+    def numbered(self):
+        """The same pass as (first, count, rows, kept, units) per chunk: the file
+        rows first .. first+count-1 were read, ``rows`` are the valid ones,
+        ``kept`` their offsets from ``first`` (None when all are valid) and
+        ``units`` their unit ids (None without a label column): what
+        :func:`affix.statistics.run_of` takes, so rows keep their places in the file."""
         # A source that reads the whole file itself hashes it as it goes (see
         # array_format.HashedRows); any other gets a thread that reads it again.
         hashing = self._raw if hasattr(self._raw, "hexdigest") else None
@@ -81,15 +95,13 @@ class ChunkStream:
                 labels, valid = self._unit_labels(labels, valid)
             first = self.first_row + self.rows_read
             self.rows_read += count
-            if valid is not None:
-                self._note_invalid(valid, first, chunk, labels)
-                chunk = chunk[valid]
-            if len(chunk) and (self.drop_invalid or not self.rows_dropped):
-                if labels is None:
-                    yield chunk
-                else:  # what affix.statistics.unit_shares takes: rows placed by their index in the file
-                    yield chunk, labels if valid is None else labels[valid], first if valid is None else (
-                        first + np.flatnonzero(valid))
+            kept = None
+            if valid is not None and not valid.all():
+                self._note_invalid(valid, first, chunk)
+                chunk, kept = chunk[valid], np.flatnonzero(valid)
+                labels = None if labels is None else labels[valid]
+            if self.drop_invalid or not self.rows_dropped:
+                yield first, count, chunk, kept, labels
         self.sha256 = digest.hexdigest() if digest else None
         if not self.drop_invalid:
             check_invalid(self.path, self.rows_dropped, self.first_invalid)
@@ -109,10 +121,8 @@ class ChunkStream:
             )
         return finite.all(axis=1)
 
-    def _note_invalid(self, valid, first, chunk, labels) -> None:
+    def _note_invalid(self, valid, first, chunk) -> None:
         """Counts the rows ``valid`` leaves out and notes the first, with the column at fault."""
-        if valid.all():
-            return
         if self.first_invalid is None:
             i = int(np.argmin(valid))
             finite = np.isfinite(chunk[i])

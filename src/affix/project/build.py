@@ -23,7 +23,6 @@ from __future__ import annotations
 
 import os
 import warnings
-from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -32,8 +31,9 @@ from affix._version import __version__
 from affix.coverage import coverage, summary_line
 from affix.errors import (AffixError, BudgetError, DataError, FileFormatError, InterfaceError, NoConfigurationError,
                           ToolError, UsageError, parameter)
-from affix.intake.digest import combined
+from affix.intake.sources import data_hash
 from affix.interface import Interface
+from affix.progress import no_bar
 from affix.project import fleet_build
 from affix.targets import get_target
 
@@ -57,14 +57,8 @@ class BuildResult:
     fleet: object | None = None  # affix.project.fleet_build.Fleet of a fleet build
 
 
-@contextmanager
-def no_bar(total: int, label: str):
-    """What a build shows of a long step by default: nothing (``bar`` of :func:`build_project`)."""
-    yield lambda done: None
-
-
 def build_project(project, *, out=None, repin: bool = False, force: bool = False,
-                  progress=lambda line: None, warn=lambda line: None, bar=no_bar) -> BuildResult:
+                  progress=lambda line: None, warn=lambda line: None, bar=no_bar, engine=None) -> BuildResult:
     """Run every step for ``project`` into ``out`` (default: the project's build folder).
 
     ``progress`` receives one line per finished step, ``warn`` each warning.
@@ -75,7 +69,14 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
     A fleet (``data.unit_column``) fits every unit, plans them in one interface and
     writes fleet.csv and each passing unit's calibration record; when some unit fails
     its budget the build folder is still written, then BudgetError names the units.
+
+    ``engine`` runs the fit's pass (see :func:`affix.fit`); by default the project's
+    ``fit.engine``, drawing its progress with ``bar``.
     """
+    if engine is None:
+        from affix.fit.engines import named
+
+        engine = named(project.engine, project.scheduler, bar=bar)
     out = Path(project.out if out is None else out)
     previous = previous_build(out, force=force)
     pin_path = _pin_path(project, previous)
@@ -94,13 +95,13 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
     fleet = None
     with files.protected(inputs), files.FileSet(out, parameter="out", earlier=earlier) as staged:
         if project.unit_column is None:
-            model = _fit(project, staged, result, progress, warn)
+            model = _fit(project, staged, result, progress, warn, engine)
             plan = _quantize(project, model, None if repin else pin, pin_path, staged, result, progress)
         else:
             def step(name: str, summary: str) -> None:
                 _step(result, progress, name, summary)
 
-            fleet = fleet_build.fit_step(project, staged, step, progress, warn)
+            fleet = fleet_build.fit_step(project, staged, step, progress, warn, engine)
             model = fleet.fit.pooled
             options = within(project.plan_options(), None if repin else pin, model.outputs)
             options["tolerance"] = {c.name: c.tolerance for c in project.outputs if c.tolerance is not None} or None
@@ -174,14 +175,15 @@ def _pin_path(project, previous) -> Path | None:
     return None
 
 
-def _fit(project, staged, result, progress, warn):
+def _fit(project, staged, result, progress, warn, engine):
     import affix
 
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
+        warnings.simplefilter("ignore", ResourceWarning)  # an engine's sockets are its own business
         model = affix.fit(list(project.data_files), [c.name for c in project.inputs],
                           [c.name for c in project.outputs], ridge=project.ridge, folds=project.folds,
-                          drop_invalid=project.drop_invalid)
+                          drop_invalid=project.drop_invalid, engine=engine)
     for warning in caught:
         warn(str(warning.message))
     if model.dropped_rows:
@@ -337,7 +339,7 @@ def _diff_previous(out, staged, result, progress, warn) -> None:
 
 def _record(project, model, interface, out, staged, result, fleet=None) -> dict:
     data = [{"path": project.relative(p), "sha256": files.file_sha256(p)} for p in project.data_files]
-    if combined(d["sha256"] for d in data) != model.data_sha256:
+    if data_hash((d["path"], d["sha256"]) for d in data) != model.data_sha256:
         raise DataError("a data file changed while the build read it; run the build again")
     return {
         "format": BUILD_FORMAT,

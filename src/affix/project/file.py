@@ -6,7 +6,6 @@ the offending key or table starts (:mod:`affix.project.lines`).
 """
 from __future__ import annotations
 
-import glob
 import os
 import re
 from dataclasses import dataclass
@@ -15,13 +14,13 @@ from pathlib import Path
 from affix.arithmetic import input_ctype
 from affix.emit.names import check_names, check_units
 from affix.errors import DataError, FileFormatError, UsageError
+from affix.intake.sources import data_files
 from affix.project.keys import KeyProblem, validate
 from affix.project.lines import key_lines, line_of
 from affix.project.toml import tomllib
 
 PROJECT_FILE = "affix.toml"
 _TOML_POSITION = re.compile(r"\s*\(at (?:line (\d+), column (\d+)|end of document)\)$")
-_GLOB = re.compile(r"[*?\[]")
 
 
 @dataclass(frozen=True)
@@ -53,6 +52,8 @@ class Project:
     skip_bad_units: bool
     ridge: float
     folds: int
+    engine: str
+    scheduler: str | None
     inputs: tuple[InputColumn, ...]
     outputs: tuple[OutputColumn, ...]
     coef_bits: int | None
@@ -210,12 +211,14 @@ def _project(path: Path, v: dict, fail) -> Project:
     return Project(
         path=path,
         name=v["name"],
-        data_files=_located(lambda: data_files(folder, v["data"]["files"]), ("data", "files"), fail),
+        data_files=_located(lambda: data_files(v["data"]["files"], folder), ("data", "files"), fail),
         drop_invalid=v["data"]["drop_invalid"],
         unit_column=unit_column,
         skip_bad_units=v["data"]["skip_bad_units"],
         ridge=v["fit"]["ridge"],
         folds=_folds(v["fit"]["folds"], fail),
+        engine=v["fit"]["engine"],
+        scheduler=_scheduler(v["fit"], fail),
         inputs=inputs,
         outputs=outputs,
         coef_bits=fixed["coef_bits"],
@@ -264,24 +267,14 @@ def _located(read, where, fail):
         fail(where, exc.message)
 
 
+def _scheduler(fit: dict, fail) -> str | None:
+    if fit["scheduler"] is not None and fit["engine"] != "dask":
+        fail(("fit", "scheduler"), 'names a Dask scheduler, which only engine = "dask" uses')
+    return fit["scheduler"]
+
+
 def _folds(folds: int, fail) -> int:
     if folds == 1:
         fail(("fit", "folds"), "must be 0 (no cross-validation) or at least 2")
     return folds
 
-
-def data_files(folder: Path, patterns) -> tuple[Path, ...]:
-    """Each entry's file, or a glob pattern's matches in name order, relative to ``folder``;
-    every file once, in the order first named.  DataError for a missing file or an empty match."""
-    found: list[Path] = []
-    for pattern in patterns:
-        if _GLOB.search(pattern):
-            matches = sorted(Path(p) for p in glob.glob(str(folder / pattern)) if Path(p).is_file())
-            if not matches:
-                raise DataError(f"'{pattern}' matches no file in {folder}")
-        else:
-            matches = [folder / pattern]
-            if not matches[0].is_file():
-                raise DataError(f"'{pattern}': no such file in {folder}")
-        found += [m for m in matches if m not in found]
-    return tuple(found)

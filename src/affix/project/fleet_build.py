@@ -36,13 +36,13 @@ class Fleet:
         return self.plan.failing if self.plan is not None else []
 
 
-def fit_step(project, staged, step, progress, warn) -> Fleet:
+def fit_step(project, staged, step, progress, warn, engine="local") -> Fleet:
     with warnings.catch_warnings(record=True):
         warnings.simplefilter("always")
         fleet = fit_fleet(list(project.data_files), [c.name for c in project.inputs],
                           [c.name for c in project.outputs], project.unit_column, ridge=project.ridge,
                           folds=project.folds, drop_invalid=project.drop_invalid,
-                          skip_bad_units=project.skip_bad_units)
+                          skip_bad_units=project.skip_bad_units, engine=engine)
     for line in fleet.warnings[:_NAMED]:
         warn(line)
     if len(fleet.warnings) > _NAMED:

@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 from affix.arithmetic import ACC_BITS, COEF_BITS, INPUT_CTYPES, OUTPUT_CTYPES, ROUNDINGS
 from affix.emit import ARITHS, LANGUAGES, STYLES
+from affix.fit.engines import ENGINES
 from affix.interface import COEFFICIENT_SOURCES
 from affix.targets import DEFAULT_TARGET, TARGETS
 
@@ -137,6 +138,10 @@ SCHEMA = Table(
                 "ridge": Key(number(positive=False), "relative ridge, RIDGE * var(y_j) added to each input's variance",
                              default=0.0),
                 "folds": Key(integer(0), "k of the k-fold cross-validated RMS; 0 skips it", default=5),
+                "engine": Key(choice(ENGINES), "where the pass over the data runs: \"local\" (this machine) or "
+                              "\"dask\" (a Dask cluster)", default="local"),
+                "scheduler": Key(text, "with engine = \"dask\": the address of a running cluster's scheduler "
+                                 "(\"tcp://host:8786\"); without it a cluster of this machine's CPUs is started"),
             },
         ),
         "inputs": Table(

@@ -33,9 +33,11 @@ def input_extremes(paths, inputs, *, drop_invalid: bool):
 
 def starter_text(project_path, *, name, files_written, inputs, outputs, extremes, options, ridge, folds,
                  drop_invalid, languages, arith, style, vectors, units=None, unit_column=None,
-                 coefficients=None, tolerance=None, skip_bad_units=False, flash_address=None) -> str:
+                 coefficients=None, tolerance=None, skip_bad_units=False, flash_address=None, engine="local",
+                 scheduler=None) -> str:
     """The project file's text; ``options`` are plan_fixed_point's keyword arguments as the CLI gave them,
-    ``units`` {input or output name: unit text}; the rest, a fleet's keys (see affix.project.keys).
+    ``units`` {input or output name: unit text}; the rest, a fleet's keys and the fit's engine (see
+    affix.project.keys).
 
     The text is read back through the project loader before it is returned,
     so a starter is never a file 'affix build' would refuse.
@@ -64,6 +66,8 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
         drop_invalid=drop_invalid,
         ridge=ridge,
         folds=folds,
+        engine=engine,
+        scheduler=scheduler,
         inputs=rows,
         outputs=[{"name": n, "budget": b, "lsb": q, "unit": units.get(n), "tolerance": t}
                  for n, b, q, t in zip(outputs, budgets, lsbs, tolerances)],

@@ -1,12 +1,17 @@
 """Per-fold moments for k-fold cross-validation in the same single pass.
 
-A row's fold depends only on its index in the stream and the seed: rows are
-taken in groups of k consecutive rows and each group is dealt to the k folds
-in a random order (the orders repeat after 8192 groups, or after about 2^20
-rows for more than 128 folds).  So any prefix of the data has balanced folds (sizes
-differ by at most one), the folds do not depend on how the stream was cut
-into chunks or in which order the chunks are merged, and a calibration rig
+A row's fold depends only on where it lies in its file and on the file's
+place in the ordered list of files read: rows are taken in groups of k
+consecutive rows and each group is dealt to the k folds in a random order
+(the orders repeat after 8192 groups, or after about 2^20 rows for more
+than 128 folds); the rows of the i-th file (from 0) are dealt from the
+pattern's i-th group on, row r at pattern position i*k + r.  So every file
+has balanced folds (sizes differ by at most one in any prefix), files too
+short to fill a group still spread over all folds, the folds do not depend
+on how the data were cut into chunks, parts or blocks, and a calibration rig
 that cycles through a few load cases cannot alias with the fold pattern.
+Invalid rows that are left out keep their place: the rows after them are
+dealt as if they were there.
 """
 from __future__ import annotations
 
@@ -68,30 +73,43 @@ def _fold_order(offset: int, count: int, folds: int, seed: int):
     one's rows start and end in that order.  Blocks of one length start at
     only a few points of the pattern, so a pass sorts a few times, not once
     per block (measured: a fifth off the statistics' time)."""
-    labels = fold_of(offset, count, folds, seed)
-    order, sizes = np.argsort(labels, kind="stable"), np.bincount(labels, minlength=folds)
-    present = np.flatnonzero(sizes)
-    ends = np.cumsum(sizes)[present]
-    spans = tuple(zip(present.tolist(), (ends - sizes[present]).tolist(), ends.tolist()))
+    order, spans = grouped(fold_of(offset, count, folds, seed), folds)
     order.flags.writeable = False  # shared by every caller
     return order, spans
 
 
-def fold_shares(chunk, first_row: int, folds: int, seed: int = FOLD_SEED):
-    """(fold, Moments) for each fold that has rows in the chunk, whose first row has index first_row.
+def grouped(labels, folds: int):
+    """The order that groups rows by their fold label, and (fold, start, end) of each fold present."""
+    # Labels fit int16 (MAX_FOLDS < 2^15), which numpy sorts by radix: 6x faster than int32.
+    order, sizes = np.argsort(labels.astype(np.int16), kind="stable"), np.bincount(labels, minlength=folds)
+    present = np.flatnonzero(sizes)
+    ends = np.cumsum(sizes)[present]
+    return order, tuple(zip(present.tolist(), (ends - sizes[present]).tolist(), ends.tolist()))
 
-    The rows are gathered fold by fold (one take, not one boolean mask per
-    fold) and shifted by the chunk's first row, which keeps the final
-    subtraction of the mean's outer product well conditioned; then each fold
-    needs one column sum and one product Z^T Z, and its extremes.
+
+def fold_shares(chunk, first_row: int, folds: int, seed: int = FOLD_SEED, kept=None):
+    """(fold, Moments) for each fold that has rows in the chunk, whose first row is at pattern position first_row.
+
+    ``kept``, when some rows were left out, gives each row's offset from
+    first_row (sorted), so the rows keep the folds of their places.  The
+    rows are gathered fold by fold (one take, not one boolean mask per fold)
+    into a new C-ordered array, so the sums below see the same layout
+    whatever array the rows came from, and shifted by the chunk's first row,
+    which keeps the final subtraction of the mean's outer product well
+    conditioned; then each fold needs one column sum and one product Z^T Z,
+    and its extremes.
     """
     chunk = np.asarray(chunk, dtype=np.float64)
     if len(chunk) == 0:
         return []
     shift = chunk[0].copy()
     if folds <= 1:
-        return [(0, _from_shifted(chunk - shift, shift, chunk.min(axis=0), chunk.max(axis=0)))]
-    order, spans = _fold_order(first_row % period(folds), len(chunk), folds, seed)
+        shifted = np.subtract(chunk, shift, order="C")
+        return [(0, _from_shifted(shifted, shift, chunk.min(axis=0), chunk.max(axis=0)))]
+    if kept is None:
+        order, spans = _fold_order(first_row % period(folds), len(chunk), folds, seed)
+    else:
+        order, spans = grouped(fold_of(first_row, int(kept[-1]) + 1, folds, seed)[kept], folds)
     # np.take copies contiguous rows fastest; the column-major chunks
     # pandas yields for CSV gather about 8x faster by fancy indexing.
     rows = np.take(chunk, order, axis=0) if chunk.flags.c_contiguous else chunk[order]
@@ -109,18 +127,3 @@ def _from_shifted(part: np.ndarray, shift: np.ndarray, low: np.ndarray, high: np
 
 def merge_folds(a: list[Moments], b: list[Moments]) -> list[Moments]:
     return [x.merge(y) for x, y in zip(a, b)]
-
-
-def accumulate(chunks, width: int, folds: int, seed: int = FOLD_SEED, first_row: int = 0) -> list[Moments]:
-    """One pass over chunks (in stream order, the first row having index
-    first_row) to per-fold moments; folds <= 1 gives one part.  Each block
-    touches only the folds it has rows in, so many folds cost no more per row."""
-    parts = [Moments.empty(width)] * max(folds, 1)  # Moments are immutable: one empty one serves all
-    row = first_row
-    for chunk in chunks:
-        for start in range(0, len(chunk), BLOCK_ROWS):
-            block = chunk[start : start + BLOCK_ROWS]
-            for fold, share in fold_shares(block, row, folds, seed):
-                parts[fold] = parts[fold].merge(share)
-            row += len(block)
-    return parts

@@ -7,7 +7,8 @@ unit and fold, kept as stacked arrays so that thousands of units cost a few
 vectorised operations per block rather than a Python loop per unit.  Shares
 merge with the same pairwise update as Moments (Chan, Golub & LeVeque, 1979),
 per unit and fold, in any order, across chunks, files, processes and
-workers.
+workers; a pass merges them along the fixed tree of
+:mod:`affix.statistics.runs`, one share per tile.
 
 A row's fold depends only on its index within its file (see
 :mod:`affix.statistics.folds`), never on its unit or on how the file was cut
@@ -22,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from affix.statistics.folds import BLOCK_ROWS, FOLD_SEED, fold_labels
+from affix.statistics.folds import FOLD_SEED, fold_labels
 from affix.statistics.moments import Moments
 
 # Below this many rows per (unit, fold) group on average, the scatter of
@@ -94,10 +95,6 @@ class UnitMoments:
         return merged
 
 
-def _arrays(moments: UnitMoments):
-    return moments.count, moments.mean, moments.scatter, moments.low, moments.high
-
-
 def _merge_into(target: UnitMoments, rows: np.ndarray, part: UnitMoments) -> None:
     """target[rows] merged with part, in place (each unit of part at its row of target)."""
     n_a = target.count[rows].astype(np.float64)
@@ -158,50 +155,16 @@ def unit_shares(chunk, units, rows, folds: int, seed: int = FOLD_SEED) -> UnitMo
 
 
 def _codes(units, count: int) -> tuple[np.ndarray, tuple[str, ...]]:
-    """Each row's unit as a code 0..U-1 and the labels in code order."""
+    """Each row's unit as a code 0..U-1 and the labels in code order, which is unit order."""
     import pandas as pd  # a hash table: far faster than sorting strings
 
     units = np.asarray(units)
     if units.shape != (count,):
         raise ValueError(f"expected {count} unit labels, got shape {units.shape}")
     codes, labels = pd.factorize(units, sort=False)
-    return codes.astype(np.int64), tuple(str(label) for label in labels)
+    labels = [str(label) for label in labels]
+    ordered = sorted(range(len(labels)), key=lambda k: unit_order(labels[k]))  # every share in unit order
+    rank = np.empty(len(labels), np.int64)
+    rank[ordered] = np.arange(len(labels))
+    return rank[codes], tuple(labels[k] for k in ordered)
 
-
-def accumulate_units(chunks, width: int, folds: int, seed: int = FOLD_SEED) -> UnitMoments:
-    """One pass over labelled chunks ((values, units, rows) as :func:`unit_shares` takes them) to UnitMoments.
-
-    Blocks of at most BLOCK_ROWS rows keep each block's work in the CPU cache;
-    the running result is merged in place, one vectorised update per block."""
-    total = _Running(width, folds)
-    for values, units, rows in chunks:
-        for start in range(0, len(values), BLOCK_ROWS):
-            end = start + BLOCK_ROWS
-            where = rows + start if np.ndim(rows) == 0 else rows[start:end]
-            total.add(unit_shares(values[start:end], np.asarray(units)[start:end], where, folds, seed))
-    return total.result()
-
-
-class _Running:
-    """UnitMoments that grow in place: capacity doubles as new units appear."""
-
-    def __init__(self, width: int, folds: int):
-        self.width, self.folds = width, folds
-        self.where: dict[str, int] = {}
-        self.store = UnitMoments.empty(width, folds, capacity=64)
-
-    def add(self, share: UnitMoments) -> None:
-        for label in share.units:
-            if label not in self.where:
-                self.where[label] = len(self.where)
-        if len(self.where) > len(self.store.count):
-            grown = UnitMoments.empty(self.width, self.folds, capacity=2 * len(self.where))
-            for old, new in zip(_arrays(self.store), _arrays(grown)):
-                new[: len(old)] = old
-            self.store = grown
-        _merge_into(self.store, np.array([self.where[label] for label in share.units], dtype=np.intp), share)
-
-    def result(self) -> UnitMoments:
-        labels = sorted(self.where, key=unit_order)
-        rows = np.array([self.where[label] for label in labels], dtype=np.intp)
-        return UnitMoments(tuple(labels), *(a[rows] for a in _arrays(self.store)))

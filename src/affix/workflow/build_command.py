@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import sys
-from contextlib import contextmanager
 
 
 def register(sub):
@@ -32,7 +31,8 @@ def run(args) -> int:
     from dataclasses import replace
 
     from affix.project import load_project
-    from affix.project.build import build_project, no_bar
+    from affix.project.build import build_project
+    from affix.workflow.progress import bar_for
 
     project = load_project(args.project)
     if args.skip_bad_units:
@@ -41,7 +41,7 @@ def run(args) -> int:
         project, out=args.out, repin=args.repin, force=args.force,
         progress=(lambda line: None) if args.quiet else print,
         warn=lambda line: print(f"affix: warning: {line}", file=sys.stderr),
-        bar=no_bar if args.quiet or not sys.stderr.isatty() else terminal_bar,
+        bar=bar_for(args.quiet),
     )
     for change in result.interface_changes:
         print(f"  interface change: {change}")
@@ -50,11 +50,3 @@ def run(args) -> int:
           f"{result.interface.id} {pinned} {project.interface_path}")
     return 0
 
-
-@contextmanager
-def terminal_bar(total: int, label: str):
-    """A progress bar on the terminal (stderr) for a step over many units; gone when the step ends."""
-    from tqdm import tqdm
-
-    with tqdm(total=total, desc=f"{label:<16}", unit="unit", leave=False, file=sys.stderr) as shown:
-        yield lambda done: shown.update(done - shown.n)

@@ -139,11 +139,19 @@ def _run(argv: list[str]) -> int:
 
 
 def _paths(args, dests) -> list:
-    """The paths the arguments ``dests`` name; an argument may name several (nargs='+', repeatable)."""
+    """The paths the arguments ``dests`` name; an argument may name several (nargs='+', repeatable),
+    and calibration data (the argument ``data``) a glob pattern or a Parquet dataset folder: the files it means."""
+    from affix.errors import DataError
+    from affix.intake.sources import data_files
+
     paths = []
     for dest in dests:
         value = getattr(args, dest)
-        paths += value if isinstance(value, list) else [value] if value else []
+        for entry in value if isinstance(value, list) else [value] if value else []:
+            try:
+                paths += data_files([entry]) if dest == "data" else [entry]
+            except DataError:  # names nothing: the command reports it in its own words
+                paths.append(entry)
     return paths
 
 

@@ -10,6 +10,7 @@ import numpy as np
 
 import affix
 from affix.errors import UsageError
+from affix.fit.engines import ENGINES
 
 LARGEST_GAINS = 3  # how many gains per output the table shows
 
@@ -18,10 +19,12 @@ def register(sub):
     parser = sub.add_parser(
         "fit",
         help="fit the linear estimator x = A*y + b from calibration data",
-        description="Fit gain and offset by least squares from a CSV (columns by header name), "
-        ".npy (columns named 0, 1, ...) or .npz file, streamed in constant memory.",
+        description="Fit gain and offset by least squares from CSV (columns by header name), "
+        ".npy (columns named 0, 1, ...), .npz or Parquet files, streamed in constant memory, on this machine "
+        "or on a Dask cluster.",
     )
-    parser.add_argument("data", nargs="+", help="calibration data file(s) (.csv, .npy or .npz), fitted as one data set")
+    parser.add_argument("data", nargs="+", help="calibration data: files (.csv, .npy, .npz, .parquet), quoted glob "
+                        "patterns ('logs/*.csv') or Parquet dataset folders, fitted as one data set")
     parser.add_argument("--inputs", required=True, help="comma-separated input columns (the raw readings y)")
     parser.add_argument("--outputs", required=True, help="comma-separated output columns (the quantities x)")
     parser.add_argument("--out", required=True, help="model file to write (JSON)")
@@ -35,19 +38,26 @@ def add_fit_options(parser) -> None:
     parser.add_argument("--ridge", type=float, default=0.0, help="relative ridge: adds RIDGE*var(y_j) to each input's variance (default 0)")
     parser.add_argument("--folds", type=int, default=5, help="k for k-fold cross-validation, 0 to skip (default 5)")
     parser.add_argument("--drop-invalid", action="store_true", help="leave out rows holding NaN, infinite or empty values")
+    parser.add_argument("--engine", choices=ENGINES, default="local",
+                        help="where the pass over the files runs: this machine (default) or a Dask cluster")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="with --engine dask: the scheduler of a running cluster (tcp://host:8786); without it "
+                        "a cluster of this machine's CPUs is started for the fit")
 
 
 def run(args) -> int:
     out = Path(args.out)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
+        warnings.simplefilter("ignore", ResourceWarning)  # an engine's sockets are its own business
         model = affix.fit(
-            args.data if len(args.data) > 1 else args.data[0],
+            args.data,
             column_names(args.inputs, "inputs"),
             column_names(args.outputs, "outputs"),
             ridge=args.ridge,
             folds=args.folds,
             drop_invalid=args.drop_invalid,
+            engine=engine(args.engine, args.scheduler),
         )
     for warning in caught:
         print(f"affix: warning: {warning.message}", file=sys.stderr)
@@ -108,6 +118,14 @@ def format_table(summary) -> str:
         lines.append("inputs seen: " + ", ".join(f"{name} {lo:.6g}..{hi:.6g}" for name, lo, hi in seen))
     lines.append(f"model written to {summary['model']}")
     return "\n".join(lines)
+
+
+def engine(name: str, scheduler: str | None):
+    """The fit's engine as the options name it, with a progress bar on a terminal."""
+    from affix.fit.engines import named
+    from affix.workflow.progress import bar_for
+
+    return named(name, scheduler, bar=bar_for())
 
 
 def column_names(text: str, parameter: str) -> list[str]:

@@ -7,8 +7,9 @@ import re
 from pathlib import Path
 
 from affix.errors import UsageError
+from affix.fit.engines import check_named
 from affix.interface import COEFFICIENT_SOURCES
-from affix.project.file import data_files
+from affix.intake.sources import data_files
 from affix.workflow.emit_command import add_emit_options
 from affix.workflow.fit_command import add_fit_options, column_names
 from affix.workflow.quantize_command import add_plan_options, named_values, per_name_values, plan_options
@@ -69,6 +70,7 @@ def run(args) -> int:
     project = Path(args.project)
     if project.exists():
         raise UsageError(f"'{project}' exists; affix init never overwrites a project file", "project")
+    check_named(args.engine, args.scheduler)
     inputs, outputs = column_names(args.inputs, "--inputs"), column_names(args.outputs, "--outputs")
     found, written = _data(args.data, project.parent)
     name = args.name or _default_name(found[0])
@@ -87,6 +89,8 @@ def run(args) -> int:
         units=units,
         ridge=args.ridge,
         folds=args.folds,
+        engine=args.engine,
+        scheduler=args.scheduler,
         drop_invalid=args.drop_invalid,
         languages=list(LANGUAGES) if args.lang in (None, "all") else [args.lang],
         arith=args.arith,
@@ -106,7 +110,7 @@ def run(args) -> int:
 def _data(arguments, folder: Path):
     """The files to read now, and the entries to write: each argument relative to the project's folder."""
     written = [Path(os.path.relpath(argument, folder)).as_posix() for argument in arguments]
-    return data_files(folder, written), written
+    return data_files(written, folder), written
 
 
 def _default_name(path: Path) -> str:
