@@ -76,6 +76,26 @@ def test_compiles_cleanly_for_cortex_m(tmp_path, arith, style):
             _compile(cc, C_FLAGS, out / "probe.c", tmp_path, "-O2", "-ffreestanding", "-DPROBE_SELFTEST", *cpu)
 
 
+@pytest.mark.parametrize("target", ["cortex-m4", "cortex-m0plus", "avr"])
+@pytest.mark.parametrize("style", ["table", "unrolled"])
+def test_every_targets_code_shape_compiles_cleanly(tmp_path, target, style):
+    # The shapes a target's code takes: four outputs per pass and the rest one by one (the M4;
+    # on the host its portable path), sums modulo 2^N (the M0+), 64-bit floors through a bias
+    # (the AVR); as strict C99 and C++11 on the host, and as C99 for the core itself.
+    from affix.targets import get_target
+
+    gcc, gxx = require("gcc"), require("g++")
+    core = get_target(target)
+    cross = require(core.compiler)
+    for plan_kind in PLANS:
+        plan = replace(random_plan(7, 4, 10, **PLANS[plan_kind]), target=target)
+        out = tmp_path / plan_kind.replace(" ", "-")
+        emit(plan, lang="c", style=style, name="probe", out_dir=out)
+        _compile(gcc, C_FLAGS + STRICTER, out / "probe.c", tmp_path, "-O2", "-DPROBE_SELFTEST")
+        _compile(gxx, CXX_FLAGS, out / "probe.c", tmp_path, "-O2", "-DPROBE_SELFTEST")
+        _compile(cross, C_FLAGS, out / "probe.c", tmp_path, "-O2", "-DPROBE_SELFTEST", *core.cpu_flags)
+
+
 @pytest.mark.parametrize("style", ["table", "unrolled"])
 def test_compiles_cleanly_where_int_is_16_bits(tmp_path, style):
     # avr-gcc: int is 16 bits, so any product not widened to the accumulator
@@ -98,8 +118,8 @@ def test_selftest_passes_and_catches_a_wrong_constant(tmp_path, arith, style):
     if arith == "float32":
         tampered = re.sub(r"(-?\d\.\d*e[+-]\d\d)f", lambda m: f"{float(m.group(1)) * 1.5:.8e}f", source, count=1)
     else:
-        pattern = (r"probe_rows\[PROBE_N_OUTPUTS\] = \{\s*\{ UINT32_C\(\d+\), \d+u, \{ (-?\d+)" if style == "table"
-                   else r"u \+= \(uint32_t\)\(\(int32_t\)INT32_C\((-?\d+)\)")
+        pattern = (r"probe_rows\[PROBE_N_OUTPUTS\] = \{\s*\{ \(?-?INT32_C\(\d+\)(?: - 1\))?, \d+u, \{ (-?\d+)"
+                   if style == "table" else r"acc \+= \(int32_t\)INT32_C\((-?\d+)\)")
         match = re.search(pattern, source, re.S)
         number = match.group(match.lastindex)
         start = match.start(match.lastindex)
@@ -157,9 +177,9 @@ def test_table_style_uses_static_const_tables(tmp_path):
     source = (out / "probe.c").read_text()
     assert re.search(r"static const struct probe_row probe_rows\[PROBE_N_OUTPUTS\]", source)
     assert "int16_t coef[PROBE_N_INPUTS];" in source
-    # Each row starts its unsigned sum at c + r + 2^31: offset, rounding constant and bias in one.
-    first = plan.offsets[0] + (1 << (plan.shifts[0] - 1) if plan.shifts[0] else 0) + 2**31
-    assert f"{{ UINT32_C({first}), {plan.shifts[0]}u, {{ {plan.coefficients[0][0]}," in source
+    # Each row starts its sum at c + r: offset and rounding constant in one.
+    first = plan.offsets[0] + (1 << (plan.shifts[0] - 1) if plan.shifts[0] else 0)
+    assert f"{{ INT32_C({first}), {plan.shifts[0]}u, {{ {plan.coefficients[0][0]}," in source
 
 
 def test_most_negative_constants_are_spelt_safely(tmp_path):

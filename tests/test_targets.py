@@ -18,6 +18,7 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
+from affix.emit.context import table_passes
 from affix.emit.templates import render
 from affix.emit.writer import emit
 from affix.errors import ToolError, UsageError
@@ -42,6 +43,9 @@ PLANS = {  # widths, inputs and outputs that take each code shape: DSP pairs, SM
                                   rounding="floor"),
     "32/32 int32 2x2": dict(seed=5, n_inputs=2, n_outputs=2, ranges="int32", coef_bits=32, acc_bits=32,
                             output_ctype="int32_t"),
+    # On the M4 and M7, four outputs per pass, then the last three one by one.
+    "32/64 int16 9x11 saturating": dict(seed=8, n_inputs=9, n_outputs=11, ranges="int16", coef_bits=32,
+                                        acc_bits=64, gain_scale=1e3),
 }
 
 
@@ -83,10 +87,19 @@ def test_the_m4_gets_one_smlal_per_term_and_smlad_per_pair(tmp_path):
     require("arm-none-eabi-gcc")
     wide = random_plan(seed=6, n_inputs=7, n_outputs=3, ranges="int16", coef_bits=32, acc_bits=64)
     code = _disassembly(tmp_path, _emit(tmp_path, wide, "cortex-m4")[0], "cortex-m4")
-    # The table style loops over outputs: its body holds one signed long multiply per input
-    # (SMLAL; GCC may start a sum with SMULL and add the offset after), and no 64 x 64 multiply.
-    assert len(re.findall(r"\bsm(lal|ull)\b", code)) == 7, code
+    # The table style loops over outputs: its body holds one signed long multiply-accumulate per
+    # input (SMLAL, the sum starting from the row's offset), and no 64 x 64 multiply.  The floor
+    # of the sum is one arithmetic shift of its high word.
+    assert len(re.findall(r"\bsmlal\b", code)) == 7 and "smull" not in code, code
     assert not re.search(r"\b(umull|umlal|mla)\b", code) and "__aeabi_lmul" not in code
+    assert re.search(r"\basrs?(\.w)?\b", code), code
+    # Eleven outputs: a loop of four outputs per pass (two passes) and one of single outputs
+    # for the last three (a loop that ran once would be unrolled and its row folded into
+    # constants), so 4 x 9 + 9 SMLAL in all.
+    many = random_plan(seed=6, n_inputs=9, n_outputs=11, ranges="int16", coef_bits=32, acc_bits=64)
+    code = _disassembly(tmp_path, _emit(tmp_path, many, "cortex-m4")[0], "cortex-m4")
+    assert len(re.findall(r"\bsmlal\b", code)) == 4 * 9 + 9, code
+    assert not re.search(r"\b(smull|umull|umlal|mla)\b", code) and "__aeabi_lmul" not in code
     # Unrolled, the constants are immediates: each coefficient goes in 16-bit halves through SMLALD,
     # two terms per instruction, high halves then low halves.
     code = _disassembly(tmp_path, _emit(tmp_path, wide, "cortex-m4", "unrolled")[0], "cortex-m4")
@@ -94,10 +107,25 @@ def test_the_m4_gets_one_smlal_per_term_and_smlad_per_pair(tmp_path):
     assert not re.search(r"\b(umull|umlal|mla|smlal)\b", code) and "__aeabi_lmul" not in code
     narrow = random_plan(seed=6, n_inputs=7, n_outputs=3, ranges="int16", coef_bits=16, acc_bits=32)
     code = _disassembly(tmp_path, _emit(tmp_path, narrow, "cortex-m4")[0], "cortex-m4")
-    # 7 inputs in 4 pairs (the last padded with 0): SMUAD starts each sum, SMLAD adds the other three.
-    assert len(re.findall(r"\bsmuad\b", code)) == 1 and len(re.findall(r"\bsmlad\b", code)) == 3, code
+    # 7 inputs in 4 pairs (the last padded with 0): SMLAD adds each pair to the sum, which starts
+    # from the row's offset.
+    assert "smuad" not in code and len(re.findall(r"\bsmlad\b", code)) == 4, code
     code = _disassembly(tmp_path, _emit(tmp_path, narrow, "cortex-m0plus")[0], "cortex-m0plus")
     assert "smlad" not in code and "muls" in code  # the portable path on ARMv6-M
+
+
+def test_every_table_loop_makes_two_passes_or_more():
+    # A loop that runs once is no loop to a compiler: it unrolls it and folds the row into
+    # constants (GCC 12 then multiplies 64 x 64 bits).  Every row is summed exactly once.
+    for n_outputs in range(1, 40):
+        for width in (1, 4):
+            passes = table_passes(n_outputs, width)
+            assert [row for p in passes for row in range(p["first"], p["end"])] == list(range(n_outputs))
+            assert all((p["end"] - p["first"]) % p["outputs"] == 0 for p in passes)
+            assert n_outputs == 1 or all((p["end"] - p["first"]) // p["outputs"] >= 2 for p in passes)
+            singles = sum(p["end"] - p["first"] for p in passes if p["outputs"] == 1)
+            if width == 4 and n_outputs >= 10:
+                assert singles in (0, 2, 3, 5), passes  # as many rows four by four as that allows
 
 
 @pytest.mark.parametrize("plan_kind,style", [("16/32 int16 7x5", "table"), ("16/32 int16 7x5", "unrolled"),

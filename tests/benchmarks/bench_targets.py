@@ -1,6 +1,6 @@
 """Instructions per evaluation on emulated Cortex-M cores: affix beside CMSIS-DSP, in one run.
 
-For each core (Cortex-M0+, Cortex-M4), shape (6 outputs x 7 inputs, 16 x 16)
+For each core (Cortex-M0+, M4, M7), shape (6 outputs x 7 inputs, 16 x 16)
 and width combination the core allows, a random plan over int16 inputs is
 emitted in both C styles, cross-compiled with arm-none-eabi-gcc -O2 and run
 in the unicorn engine's model of the core, counting every instruction of the
@@ -38,7 +38,7 @@ from affix.targets.emulator import SCRATCH, Emulator
 from affix.targets.figures import target_figures
 from affix.targets.toolchain import build_image
 
-CORES = ("cortex-m0plus", "cortex-m4")
+CORES = ("cortex-m0plus", "cortex-m4", "cortex-m7")
 SHAPES = ((6, 7), (16, 16))  # (outputs, inputs)
 WIDTHS = ((8, 32), (16, 32), (32, 32), (8, 64), (16, 64), (32, 64))  # (coefficient bits, accumulator bits)
 STYLES = ("table", "unrolled")

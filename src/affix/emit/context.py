@@ -91,9 +91,8 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
                 "name": column,
                 "coefficients": list(row),
                 "offset": plan.offsets[i],
-                "constant": plan.offsets[i] + round_const,  # c_i + r_i: the rounding constant folded in
-                # c_i + r_i + 2**(N-1): where the unsigned sum of the C code starts.
-                "biased": plan.offsets[i] + round_const + 2 ** (plan.acc_bits - 1),
+                # c_i + r_i: where the sum starts, the rounding constant folded in.
+                "constant": plan.offsets[i] + round_const,
                 "q_shift": applied - 32 if high_shift else applied,
                 "terms": [
                     {"input": j, "coefficient": a, "product_bits": _product_bits(plan, target, a, reach[j])}
@@ -151,7 +150,9 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
         "high_shift": high_shift,
         "narrow_products": plan.acc_bits == 64 and any(t["product_bits"] == 32 for o in outputs for t in o["terms"]),
         "q_bits": 32 if high_shift else plan.acc_bits,  # width of the floored value q
-        "zero_shift": records or any(s - (32 if high_shift else 0) == 0 for s in applied_shifts),
+        "passes": table_passes(len(outputs), target.outputs_per_pass),
+        "modular_sums": target.modular_sums and style == "table",
+        "floor_by_bias": target.floor_64_by_bias,
         "coef_bits": plan.coef_bits,
         "rounding": plan.rounding,
         "accumulator_bound": max(o["acc_bound"] for o in outputs),
@@ -190,6 +191,26 @@ def record_facts(plan, interface) -> dict:
         "acc_limit": get_target(plan.target).accumulator_limit(plan.acc_bits),
         "sample": list(sample),
     }
+
+
+def table_passes(n_outputs: int, outputs_per_pass: int) -> list[dict]:
+    """The table style's loops over the outputs (term by term): each sums ``outputs`` rows per
+    pass, over rows ``first`` to ``end``.
+
+    Every loop makes two passes or more (a lone output apart): a compiler unrolls a loop
+    that runs once and folds that row's coefficients into constants, which GCC 12 then
+    multiplies 64 x 64 bits instead of one SMLAL per term.  So the wide loop leaves no
+    rows or two and more for the one-output loop, never exactly one.
+    """
+    passes, first = [], 0
+    for width in sorted({outputs_per_pass, 1}, reverse=True):
+        count = (n_outputs - first) // width
+        if width > 1 and n_outputs - first - count * width == 1:
+            count -= 1
+        if count >= 2 or (width == 1 and count == n_outputs - first > 0):
+            passes.append({"outputs": width, "first": first, "end": first + count * width})
+            first += count * width
+    return passes
 
 
 def _product_bits(plan, target, coefficient: int, reach: int) -> int:

@@ -40,6 +40,20 @@ class Target:
     accumulator_cap: int | None = None
     # The accumulator widths worth searching there.
     accumulator_widths: tuple[int, ...] = (32, 64)
+    # Outputs the table-style C sums per pass over the inputs (term by term, without the dual
+    # 16-bit path): each clamped input, loaded once, feeds that many multiply-accumulates.  Where
+    # the inputs do not all fit the registers beside the sums, more outputs per pass mean fewer
+    # reloads; chosen by measuring the emitted code on the core (tests/benchmarks/bench_targets.py).
+    outputs_per_pass: int = 1
+    # The table style forms each sum modulo 2^N in uintN_t (its signed value recovered at the
+    # end) rather than in intN_t: GCC 12 may then reassociate it, which on ARMv6-M frees
+    # registers once the inputs outnumber them, but on cores with SMLAL splits the
+    # one-instruction chain.  Chosen by measuring the emitted code, like outputs_per_pass.
+    modular_sums: bool = False
+    # Floor a 64-bit sum through its biased unsigned value rather than the sign-symmetric
+    # form that GCC 12 turns into one arithmetic shift: the AVR's compiler (avr-gcc 5) keeps
+    # that form's two 64-bit negations.  Measured the same way.
+    floor_64_by_bias: bool = False
 
     def accumulator_limit(self, acc_bits: int) -> int:
         """The proof's limit: every |acc + r| over the box stays below it."""
@@ -54,16 +68,16 @@ TARGETS = {
                widening_mac=True, dual_mac=False, mpy_march=None),
         Target("cortex-m0plus", "Arm Cortex-M0+ (ARMv6-M): 32x32->32 MULS, no long multiply",
                "arm-none-eabi-gcc", ("-mcpu=cortex-m0plus", "-mthumb"), "cortex-m0",
-               widening_mac=False, dual_mac=False, mpy_march="armv6m"),
+               widening_mac=False, dual_mac=False, mpy_march="armv6m", modular_sums=True),
         Target("cortex-m4", "Arm Cortex-M4 (ARMv7E-M): single-cycle SMLAL, dual 16-bit SMLAD/SMLALD",
                "arm-none-eabi-gcc", ("-mcpu=cortex-m4", "-mthumb"), "cortex-m4",
-               widening_mac=True, dual_mac=True, mpy_march="armv7emsp"),
+               widening_mac=True, dual_mac=True, mpy_march="armv7emsp", outputs_per_pass=4),
         Target("cortex-m7", "Arm Cortex-M7 (ARMv7E-M, dual issue): SMLAL, SMLAD/SMLALD",
                "arm-none-eabi-gcc", ("-mcpu=cortex-m7", "-mthumb"), "cortex-m7",
-               widening_mac=True, dual_mac=True, mpy_march="armv7emdp"),
+               widening_mac=True, dual_mac=True, mpy_march="armv7emdp", outputs_per_pass=4),
         Target("avr", "8-bit AVR (ATmega2560 here): 8x8 MUL, int is 16 bits",
                "avr-gcc", ("-mmcu=atmega2560",), "simavr",
-               widening_mac=False, dual_mac=False, mpy_march=None),
+               widening_mac=False, dual_mac=False, mpy_march=None, floor_64_by_bias=True),
         Target("micropython", "MicroPython on a 32-bit port: small ints end at +-2**30",
                None, (), None, widening_mac=False, dual_mac=False, mpy_march="armv7emsp",
                accumulator_cap=SMALL_INT_32[1] + 1, accumulator_widths=(32,)),
