@@ -37,6 +37,8 @@ PLANS = {  # a spread of types: signed/unsigned inputs, 8..32-bit coefficients, 
                                            rounding="floor"),
     "int8-in tiny gain": dict(ranges="int8", coef_bits=8, acc_bits=32, gain_scale=1e-6),
     "int16-in int32-out acc64": dict(ranges="int16", coef_bits=16, acc_bits=64, output_ctype="int32_t"),
+    "uint8-in int32-out acc64 unshifted": dict(ranges="uint8", coef_bits=8, acc_bits=64, output_ctype="int32_t",
+                                               gain_scale=1e12),
 }
 VARIANTS = [("int", "table"), ("int", "unrolled"), ("float32", "table"), ("float32", "unrolled")]
 
@@ -291,7 +293,7 @@ def test_free_text_from_a_plan_file_never_reaches_a_comment(tmp_path, field, val
 
 @pytest.mark.parametrize("plan_kind", ["int16-in int16-out acc32", "uint32-in int16-out acc64 saturating",
                                        "uint8-in int32-out acc32", "int32-in int32-out acc64 floor",
-                                       "int16-in int32-out acc64"])
+                                       "int16-in int32-out acc64", "uint8-in int32-out acc64 unshifted"])
 @pytest.mark.parametrize("style", ["table", "unrolled"])
 @pytest.mark.parametrize("target", ["host", "avr"])
 def test_runs_bit_exact_where_int_is_16_bits(tmp_path, plan_kind, style, target):
