@@ -43,10 +43,10 @@ PLANS = {  # a spread of types: signed/unsigned inputs, 8..32-bit coefficients, 
 VARIANTS = [("int", "table"), ("int", "unrolled"), ("float32", "table"), ("float32", "unrolled")]
 
 
-def _emit(tmp_path, plan_kind, arith, style, name="probe", target="host"):
+def _emit(tmp_path, plan_kind, arith, style, name="probe", target="host", coefficients="compiled"):
     plan = replace(random_plan(7, 4, 3, **PLANS[plan_kind]), target=target)
     out = tmp_path / f"{arith}-{style}"
-    manifest = emit(plan, lang="c", arith=arith, style=style, name=name, out_dir=out)
+    manifest = emit(plan, lang="c", arith=arith, style=style, name=name, out_dir=out, coefficients=coefficients)
     return plan, out, manifest
 
 
@@ -294,29 +294,34 @@ def test_free_text_from_a_plan_file_never_reaches_a_comment(tmp_path, field, val
 @pytest.mark.parametrize("plan_kind", ["int16-in int16-out acc32", "uint32-in int16-out acc64 saturating",
                                        "uint8-in int32-out acc32", "int32-in int32-out acc64 floor",
                                        "int16-in int32-out acc64", "uint8-in int32-out acc64 unshifted"])
-@pytest.mark.parametrize("style", ["table", "unrolled"])
+@pytest.mark.parametrize("style,coefficients", [("table", "compiled"), ("unrolled", "compiled"), ("table", "record")])
 @pytest.mark.parametrize("target", ["host", "avr"])
-def test_runs_bit_exact_where_int_is_16_bits(tmp_path, plan_kind, style, target):
+def test_runs_bit_exact_where_int_is_16_bits(tmp_path, plan_kind, style, coefficients, target):
     # Executed, not only compiled, on an ATmega2560 (avr-gcc: int is 16 bits,
     # long 32, long long 64) in the simavr simulator, against the integer
     # reference: the C99 §6.3.1.8 widening claim checked on real 8-bit code.
     # Planned for the AVR, 64-bit sums take their products in 32 bits where the box allows.
+    # Code that loads a record runs with a record of the plan's own integers.
     import numpy as np
 
     from affix.emit.templates import render
+    from affix.record import Contract, encode
     from affix.verify.vectors import vector_sets
 
     cc, sim = require("avr-gcc"), require("simavr")
-    plan, out, manifest = _emit(tmp_path, plan_kind, "int", style, target=target)
+    plan, out, manifest = _emit(tmp_path, plan_kind, "int", style, target=target, coefficients=coefficients)
     sets = vector_sets(plan.input_ranges, manifest["input_ctype"], n_random=16, seed=2)
     y = np.vstack([sets["corners"].chunk(0)[:32], sets["beyond the box"].chunk(0)[:16], sets["random"].chunk(0)])
     expected = plan.integer_estimator().evaluate(y)
     bits = int(manifest["input_ctype"].strip("uint_t"))
+    record = None if coefficients == "compiled" else list(encode(
+        "SN-1", plan.coefficients, plan.offsets, plan.shifts, coef_bits=plan.coef_bits, acc_bits=plan.acc_bits,
+        interface_id=Contract.of(manifest).interface_id, data_sha256=None))
     main = tmp_path / "avr_main.c"
     main.write_text(render("c/avr_check_main.c.jinja", name="probe", input_ctype=manifest["input_ctype"],
                            output_ctype=manifest["output_ctype"], input_bits=bits,
                            output_bits=int(manifest["output_ctype"].strip("int_t")),
-                           vectors=y.tolist(), expected=expected.tolist()))
+                           vectors=y.tolist(), expected=expected.tolist(), record=record))
     elf = tmp_path / "check.elf"
     done = subprocess.run([cc, "-mmcu=atmega2560", "-std=c99", "-O2", "-DPROBE_SELFTEST", f"-I{out}",
                            str(main), str(out / "probe.c"), "-o", str(elf)], capture_output=True, text=True)

@@ -153,7 +153,7 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
         "passes": table_passes(len(outputs), target.outputs_per_pass),
         "modular_sums": target.modular_sums and style == "table",
         "floor_by_bias": target.floor_64_by_bias,
-        "zero_shift": any(o["q_shift"] == 0 for o in outputs),  # a floor by 2^0 among them
+        "zero_shift": records or any(o["q_shift"] == 0 for o in outputs),  # a floor by 2^0 among them (a record: any shift)
         "coef_bits": plan.coef_bits,
         "rounding": plan.rounding,
         "accumulator_bound": max(o["acc_bound"] for o in outputs),
