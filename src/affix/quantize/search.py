@@ -1,7 +1,8 @@
 """The cheapest configuration on the target that meets the budget.
 
 Configurations run cheapest first by the target's measured cost of one
-evaluation at this shape (affix.targets.costs), ties and unmeasured targets
+evaluation at this shape (affix.targets.costs); ties (costs closer than the
+model's own fit to its measurements on that target) and unmeasured targets
 in the order coefficient width (8 < 16 < 32), then accumulator width (32 <
 64), then output type (int16_t < int32_t); widths the user fixed, or the
 target rules out, are not searched.  Without a budget the cheapest feasible
@@ -25,7 +26,7 @@ from affix.quantize.design import Configuration, OutputDesign, design_output
 from affix.quantize.lsb import design_at_finest_lsb
 from affix.quantize.shift import Infeasible
 from affix.targets import DEFAULT_TARGET, get_target
-from affix.targets.costs import evaluation_cost
+from affix.targets.costs import cost_resolution, evaluation_cost
 
 @dataclass(frozen=True)
 class Choice:
@@ -51,11 +52,21 @@ def configurations(coef_bits=None, acc_bits=None, output_ctype=None, *, target=D
     )
     configs = [Configuration(c, a, o, acc_limit=target.accumulator_limit(a)) for c, a, o in grid]
 
-    def order(config):
-        cost = evaluation_cost(target.name, config.coef_bits, config.acc_bits, n_inputs, n_outputs)
-        return (float("inf") if cost is None else round(cost), config.widths)
+    def cost(config):
+        predicted = evaluation_cost(target.name, config.coef_bits, config.acc_bits, n_inputs, n_outputs)
+        return float("inf") if predicted is None else predicted
 
-    return sorted(configs, key=order)
+    # Costs the model cannot tell apart (closer than its own fit to the measurements) are ties:
+    # each step takes the narrowest of those within that margin of the cheapest left.
+    resolution = cost_resolution(target.name)
+    left = sorted(configs, key=lambda c: (cost(c), c.widths))
+    ordered = []
+    while left:
+        cheapest = cost(left[0])  # a fit may predict a count below zero at the smallest shapes
+        ties = [c for c in left if cost(c) == cheapest or cost(c) - cheapest <= abs(cheapest) * resolution]
+        ordered.append(min(ties, key=lambda c: c.widths))
+        left.remove(ordered[-1])
+    return ordered
 
 
 def design_configuration(problem: Problem, config: Configuration) -> tuple[OutputDesign, ...]:

@@ -37,5 +37,19 @@ def evaluation_cost(target: str, coef_bits: int, acc_bits: int, n_inputs: int, n
     return k0 + k_out * n_outputs + k_in * n_inputs + k_mac * n_outputs * n_inputs
 
 
+@lru_cache(maxsize=None)
+def cost_resolution(target: str) -> float:
+    """The largest relative gap between the target's fitted and measured costs, over every width
+    combination and shape measured (0 where unmeasured): two predictions closer than this are
+    not told apart by the model."""
+    worst = 0.0
+    for key, entry in cost_table()["targets"].get(target, {}).get("configurations", {}).items():
+        coef_bits, acc_bits = map(int, key.split("/"))
+        for n_outputs, n_inputs, counted in entry["measured"]:
+            predicted = evaluation_cost(target, coef_bits, acc_bits, n_inputs, n_outputs)
+            worst = max(worst, abs(predicted - counted) / counted)
+    return worst
+
+
 def cost_unit(target: str) -> str | None:
     return cost_table()["targets"].get(target, {}).get("unit")
