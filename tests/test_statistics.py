@@ -5,6 +5,7 @@ import numpy as np
 import pytest
 
 from affix.statistics import Moments, accumulate, finish, fold_of, join, merge_all, merge_folds, run_of
+from affix.statistics.moments import column_extremes
 from affix.statistics.runs import TILE_ROWS
 
 
@@ -29,6 +30,18 @@ def test_moments_match_numpy_mean_and_covariance():
     np.testing.assert_allclose(m.covariance, np.cov(rows, rowvar=False), rtol=1e-11)  # numpy.cov, 1/(n-1)
     np.testing.assert_array_equal(m.low, rows.min(axis=0))
     np.testing.assert_array_equal(m.high, rows.max(axis=0))
+
+
+@pytest.mark.parametrize("rows", [1, 15, 16, 17, 1638, 16384])
+@pytest.mark.parametrize("width", [1, 3, 18])
+def test_column_extremes_equal_numpys_min_and_max(rows, width):
+    values = np.random.default_rng(rows * 31 + width).normal(scale=1e3, size=(rows, width))
+    values[-1, -1] = 1e9  # the largest value in the rows that do not fill a group of 16
+    low, high = column_extremes(values)
+    np.testing.assert_array_equal(low, values.min(axis=0))  # numpy's own reduction, the reference
+    np.testing.assert_array_equal(high, values.max(axis=0))
+    # A strided view (a column selection) takes numpy's path and gives the same.
+    np.testing.assert_array_equal(column_extremes(values[::2])[0], values[::2].min(axis=0))
 
 
 def test_pairwise_merge_of_shuffled_chunks_equals_one_pass():

@@ -19,7 +19,7 @@ from functools import lru_cache
 
 import numpy as np
 
-from affix.statistics.moments import Moments
+from affix.statistics.moments import Moments, column_extremes
 
 FOLD_SEED = 20261201
 # Every fold keeps its own moments (a few KB each) and is solved once, so the
@@ -105,7 +105,7 @@ def fold_shares(chunk, first_row: int, folds: int, seed: int = FOLD_SEED, kept=N
     shift = chunk[0].copy()
     if folds <= 1:
         shifted = np.subtract(chunk, shift, order="C")
-        return [(0, _from_shifted(shifted, shift, chunk.min(axis=0), chunk.max(axis=0)))]
+        return [(0, _from_shifted(shifted, shift, *column_extremes(chunk)))]
     if kept is None:
         order, spans = _fold_order(first_row % period(folds), len(chunk), folds, seed)
     else:
@@ -114,7 +114,7 @@ def fold_shares(chunk, first_row: int, folds: int, seed: int = FOLD_SEED, kept=N
     # pandas yields for CSV gather about 8x faster by fancy indexing.
     rows = np.take(chunk, order, axis=0) if chunk.flags.c_contiguous else chunk[order]
     # The extremes from the raw values, before the shift: exact, not x - s + s.
-    extremes = [(rows[start:end].min(axis=0), rows[start:end].max(axis=0)) for _, start, end in spans]
+    extremes = [column_extremes(rows[start:end]) for _, start, end in spans]
     rows -= shift
     return [(fold, _from_shifted(rows[start:end], shift, *ends)) for (fold, start, end), ends in zip(spans, extremes)]
 

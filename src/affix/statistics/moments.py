@@ -40,7 +40,7 @@ class Moments:
             return cls.empty(rows.shape[1])
         mean = rows.mean(axis=0)
         centred = rows - mean
-        return cls(len(rows), mean, centred.T @ centred, rows.min(axis=0), rows.max(axis=0))
+        return cls(len(rows), mean, centred.T @ centred, *column_extremes(rows))
 
     @property
     def width(self) -> int:
@@ -61,6 +61,26 @@ class Moments:
         mean = self.mean + delta * (other.count / n)
         scatter = self.scatter + other.scatter + np.outer(delta, delta) * (self.count * other.count / n)
         return Moments(n, mean, scatter, np.minimum(self.low, other.low), np.maximum(self.high, other.high))
+
+
+# Rows viewed side by side for column_extremes: numpy reduces an (n, d) array
+# over its rows d values at a time, so narrow rows run short vector loops;
+# as (n/16, 16d) the same comparisons take a third of the time (measured at
+# d = 18), and the 16 partial results fold in one more small reduction.
+_SIDE_BY_SIDE = 16
+
+
+def column_extremes(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Each column's smallest and largest value of C-ordered rows (k >= 1, d)."""
+    whole = len(rows) - len(rows) % _SIDE_BY_SIDE
+    if whole == 0 or not rows.flags.c_contiguous:
+        return rows.min(axis=0), rows.max(axis=0)
+    wide = rows[:whole].reshape(-1, _SIDE_BY_SIDE * rows.shape[1])
+    low = wide.min(axis=0).reshape(_SIDE_BY_SIDE, -1).min(axis=0)
+    high = wide.max(axis=0).reshape(_SIDE_BY_SIDE, -1).max(axis=0)
+    if whole < len(rows):
+        low, high = np.minimum(low, rows[whole:].min(axis=0)), np.maximum(high, rows[whole:].max(axis=0))
+    return low, high
 
 
 def merge_all(parts, width: int) -> Moments:
