@@ -199,6 +199,15 @@ def test_an_unreachable_scheduler_is_one_line_and_status_4(tmp_path, logs):
     assert result.returncode == 4
     assert result.stderr.startswith(f"affix: error: --scheduler: cannot reach the Dask scheduler at {address} (")
     assert len(result.stderr.splitlines()) == 1 and not (tmp_path / "m.json").exists()
+    # A build names the project key that gave the address, and writes no build folder.
+    import colour_sensor
+
+    colour_sensor.write_log(tmp_path / "colour.csv")
+    colour_sensor.write_project(tmp_path, extra=f'\n[fit]\nengine = "dask"\nscheduler = "{address}"\n')
+    built = run_affix("build", cwd=tmp_path, env={**os.environ, "DASK_DISTRIBUTED__COMM__TIMEOUTS__CONNECT": "2s"})
+    assert built.returncode == 4 and built.stdout == ""
+    assert built.stderr.startswith(f"affix: error: fit.scheduler: cannot reach the Dask scheduler at {address} (")
+    assert len(built.stderr.splitlines()) == 1 and not (tmp_path / "build").exists()
 
 
 @pytest.mark.bad_input("fit")
@@ -334,3 +343,26 @@ def test_a_fleet_log_on_dask_gives_every_unit_the_single_machine_model(client, t
     design = np.column_stack([rows[INPUTS].to_numpy(float), np.ones(len(rows))])
     solution = np.linalg.lstsq(design, rows[OUTPUTS].to_numpy(float), rcond=None)[0]
     np.testing.assert_allclose(on_dask.models["SN0007"].gain, solution[:4].T, rtol=1e-9)
+
+
+def test_a_fleet_built_on_dask_is_the_local_fleet_build_byte_for_byte(client, tmp_path):
+    # The project's fit.engine reaches the fleet's per-unit pass: fleet.csv and every unit's record agree.
+    from conftest import require
+    from test_fleet_build import INIT, batch
+
+    require("gcc")
+    require("micropython")
+    built = {}
+    for engine in ("local", "dask"):
+        folder = tmp_path / engine
+        folder.mkdir()
+        batch(folder)
+        cluster = ["--engine", "dask", "--scheduler", client.scheduler.address] if engine == "dask" else []
+        assert run_affix("init", "batch.csv", *INIT, *cluster, cwd=folder).returncode == 0
+        done = run_affix("build", "--quiet", cwd=folder)
+        assert f'\nengine = "{engine}"\n' in (folder / "affix.toml").read_text()
+        assert done.returncode == 3, done.stderr  # the batch's out-of-tolerance unit, on both engines
+        built[engine] = sorted((p.relative_to(folder / "build"), p.read_bytes())
+                               for p in (folder / "build").rglob("*") if p.is_file())
+    assert built["dask"] == built["local"]
+    assert len([name for name, _ in built["dask"] if name.suffix == ".bin"]) == 7

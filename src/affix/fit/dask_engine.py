@@ -52,12 +52,15 @@ class DaskEngine:
     (``workers`` of them, if given) and shut down after it.
 
     ``bar`` shows the progress (see :mod:`affix.progress`): it is told the bytes
-    of the blocks done as each one finishes."""
+    of the blocks done as each one finishes.  ``scheduler_parameter`` is what
+    an unreachable scheduler's error names (a build names its project key)."""
 
-    def __init__(self, scheduler=None, *, block_bytes: int = BLOCK_BYTES, workers: int | None = None, bar=no_bar):
+    def __init__(self, scheduler=None, *, block_bytes: int = BLOCK_BYTES, workers: int | None = None, bar=no_bar,
+                 scheduler_parameter: str = "scheduler"):
         if isinstance(block_bytes, bool) or not (isinstance(block_bytes, int) and block_bytes >= 1):
             raise UsageError(f"must be a whole number of bytes >= 1, got {block_bytes!r}", parameter="block_bytes")
         self.scheduler, self.block_bytes, self.workers, self.bar = scheduler, block_bytes, workers, bar
+        self.scheduler_parameter = scheduler_parameter
 
     def moments(self, paths, settings: Pass):
         """(per-fold moments, rows left out, data hash) of the files, in order."""
@@ -114,7 +117,7 @@ class DaskEngine:
             try:
                 client = distributed.Client(self.scheduler, set_as_default=False)
             except (OSError, ValueError, TypeError) as exc:
-                raise ToolError(f"{parameter('scheduler')}: cannot reach the Dask scheduler at {self.scheduler} "
+                raise ToolError(f"{parameter(self.scheduler_parameter)}: cannot reach the Dask scheduler at {self.scheduler} "
                                 f"({_one_line(exc)})") from None
             with client:
                 yield client

@@ -12,16 +12,16 @@ from affix.progress import no_bar
 ENGINES = ("local", "dask")
 
 
-def named(name: str, scheduler=None, bar=no_bar):
+def named(name: str, scheduler=None, bar=no_bar, scheduler_parameter: str = "scheduler"):
     """The engine called ``name``: "local", or "dask" on the cluster at ``scheduler``
-    (an address; None: a cluster of this machine's CPUs), showing its progress with
-    ``bar`` (see :mod:`affix.progress`)."""
+    (an address; None: a cluster of this machine's CPUs; its errors call it
+    ``scheduler_parameter``), showing its progress with ``bar`` (see :mod:`affix.progress`)."""
     check_named(name, scheduler)
     if name != "dask":
         return engine_for(name)
     from affix.fit.dask_engine import DaskEngine
 
-    return DaskEngine(scheduler, bar=bar)
+    return DaskEngine(scheduler, bar=bar, scheduler_parameter=scheduler_parameter)
 
 
 def check_named(name: str, scheduler=None) -> None:

@@ -76,7 +76,7 @@ def build_project(project, *, out=None, repin: bool = False, force: bool = False
     if engine is None:
         from affix.fit.engines import named
 
-        engine = named(project.engine, project.scheduler, bar=bar)
+        engine = named(project.engine, project.scheduler, bar=bar, scheduler_parameter="fit.scheduler")
     out = Path(project.out if out is None else out)
     previous = previous_build(out, force=force)
     pin_path = _pin_path(project, previous)
