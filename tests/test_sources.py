@@ -172,3 +172,27 @@ def test_the_cli_expands_a_quoted_glob_and_protects_what_it_matches(tmp_path):
     refused = run_affix(*arguments, "--out", "logs/run1.csv", cwd=tmp_path)
     assert refused.returncode == 2 and "is an input of this command" in refused.stderr
     assert (tmp_path / "logs" / "run1.csv").read_bytes() == before
+
+
+@pytest.mark.bad_input("fit")
+def test_without_the_extras_csv_fits_and_parquet_says_what_to_install(tmp_path):
+    # A Python in which neither pyarrow nor dask.distributed imports, as in a base install.
+    import sys
+
+    write_csv(tmp_path / "log.csv", log_rows(np.random.default_rng(5), 300))
+    write_parquet(tmp_path / "log.parquet", log_rows(np.random.default_rng(6), 300), row_group_size=100)
+    code = ("import sys; sys.modules['pyarrow'] = sys.modules['distributed'] = sys.modules['dask'] = None\n"
+            "from affix.workflow.cli import main; sys.exit(main())")
+
+    def fit(data):
+        return subprocess.run([sys.executable, "-c", code, "fit", data, "--inputs", ",".join(INPUTS), "--outputs",
+                               ",".join(OUTPUTS), "--out", "m.json"], cwd=tmp_path, capture_output=True, text=True)
+
+    plain = fit("log.csv")
+    assert plain.returncode == 0 and plain.stderr == "", plain.stderr
+    assert Model.load(tmp_path / "m.json").n_samples == 300
+    (tmp_path / "m.json").unlink()
+    parquet = fit("log.parquet")
+    assert parquet.returncode == 4
+    assert parquet.stderr == "affix: error: reading Parquet needs pyarrow: pip install 'affix[parquet]'\n"
+    assert not (tmp_path / "m.json").exists()
