@@ -100,6 +100,8 @@ def main() -> None:
     args = parser.parse_args()
     from distributed import LocalCluster
 
+    logging.getLogger("distributed").setLevel(logging.ERROR)  # not the clusters' closing chatter between the figures
+
     with tempfile.TemporaryDirectory() as scratch:
         folder = args.dir or Path(scratch)
         folder.mkdir(parents=True, exist_ok=True)
