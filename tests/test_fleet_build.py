@@ -149,6 +149,20 @@ def test_build_json_hashes_every_record_and_the_report_shows_the_reject(built):
         assert float(element.get("data-value")) == float(rows[int(line.removeprefix("L")) - 2][column])
 
 
+def test_the_code_that_loads_records_runs_and_is_measured_on_the_planned_core(built):
+    # The fleet targets a Cortex-M4: its estimator, with the nominal unit's record loaded on the emulated
+    # core (unicorn), is verified against the reference over every vector set and measured like compiled code.
+    require("arm-none-eabi-gcc")
+    folder, _ = built
+    figures = json.loads((folder / "build" / "build.json").read_text())["target_figures"]
+    assert figures["target"] == "cortex-m4" and figures["instructions_per_evaluation"] > 6 * 7
+    verification = json.loads((folder / "build" / "verification.json").read_text())
+    on_core = [r for r in verification["results"]
+               if r["artefact"] == "C wrist_ft_estimate_record() on the emulated cortex-m4 (table)"]
+    assert {r["vector_set"] for r in on_core} >= {"corners", "random"}
+    assert all(r["mismatches"] == 0 and r["error"] is None and r["vectors"] > 0 for r in on_core)
+
+
 def test_a_second_batch_builds_within_the_pinned_interface(built, tmp_path):
     """The pin from the first batch fixes widths, types and scales: a second batch gets new records for the
     same firmware (same fingerprint), and its records load with the first build's code."""

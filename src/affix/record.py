@@ -190,6 +190,14 @@ def encode(unit: str, coefficients, offsets, shifts, *, coef_bits: int, acc_bits
     return body + struct.pack("<I", zlib.crc32(body))
 
 
+def nominal_record(values: dict) -> bytes:
+    """The record of a manifest's own integers (unit "nominal", no data hash): what verification and
+    the target's figures run code that loads records with."""
+    return encode("nominal", values["coefficients"], values["offsets"], values["shifts"],
+                  coef_bits=values["coef_bits"], acc_bits=values["acc_bits"],
+                  interface_id=Contract.of(values).interface_id, data_sha256=None)
+
+
 def decode(data: bytes, contract: Contract, path=None) -> Record:
     """The record in ``data``, checked as the emitted loaders check it (REASONS, in that order);
     RecordError names the first check that fails."""

@@ -41,7 +41,7 @@ from affix.targets.toolchain import build_image
 CORES = ("cortex-m0plus", "cortex-m4", "cortex-m7")
 SHAPES = ((6, 7), (16, 16))  # (outputs, inputs)
 WIDTHS = ((8, 32), (16, 32), (32, 32), (8, 64), (16, 64), (32, 64))  # (coefficient bits, accumulator bits)
-STYLES = ("table", "unrolled")
+STYLES = ("table", "unrolled", "record")  # record: table-style code that loads a calibration record (fleets)
 KERNELS = {16: "q15", 32: "q31"}  # the library kernel with the same coefficient width (8-bit: q15 too)
 
 
@@ -111,7 +111,9 @@ def affix_counts(core: str, shape, widths, style: str, work: Path) -> float | No
     rows, cols = shape
     plan = bench_plan(shape, widths, core)
     out = work / f"{core}-{rows}x{cols}-{coef_bits}-{acc_bits}-{style}"
-    emit(plan, lang="c", style=style, name="bench", out_dir=out)
+    record = style == "record"
+    emit(plan, lang="c", style="table" if record else style, name="bench", out_dir=out,
+         coefficients="record" if record else "compiled")
     return target_figures(out, core)["instructions_per_evaluation"]
 
 

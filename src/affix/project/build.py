@@ -274,8 +274,7 @@ def _emit(project, plan, staged, result, progress, warn) -> Interface:
     interface = Interface.from_dict(manifest["interface"])
     _step(result, progress, "emit", f"{', '.join(written)}; interface {interface.id}")
     result.target = plan.target
-    if ("c" in manifest["files"] and project.arith == "int" and project.coefficients == "compiled"
-            and get_target(plan.target).compiler is not None):
+    if "c" in manifest["files"] and project.arith == "int" and get_target(plan.target).compiler is not None:
         _measure(staged, plan.target, result, progress, warn)
     return interface
 

@@ -98,9 +98,13 @@ class Emulator:
         self._count = 0
         if count and self._hook is None:
             self._hook = self.uc.hook_add(self._unicorn.UC_HOOK_CODE, self._tick)
+            # Unicorn 2 (up to 2.1) does not instrument code it translated before the hook existed
+            # (unicorn-engine/unicorn#2200): drop those translations, so every instruction counts.
+            self.uc.ctl_flush_tb()
         elif not count and self._hook is not None:
             self.uc.hook_del(self._hook)
             self._hook = None
+            self.uc.ctl_flush_tb()
         try:
             self.uc.emu_start(begin, RETURN, count=10**8)
         except self._unicorn.UcError as exc:
@@ -117,6 +121,18 @@ class Emulator:
         if not self.arm:
             used -= 8  # the return address the caller pushed
         return self._count, used
+
+    def result(self, *, signed: bool = False) -> int:
+        """What the last call returned in its int-sized register (r0; eax on x86-64)."""
+        if self.arm:
+            from unicorn import arm_const as c
+
+            value = self.uc.reg_read(c.UC_ARM_REG_R0) & 0xFFFFFFFF
+        else:
+            from unicorn import x86_const as c
+
+            value = self.uc.reg_read(c.UC_X86_REG_EAX) & 0xFFFFFFFF
+        return value - (1 << 32) if signed and value >= 1 << 31 else value
 
     def _tick(self, uc, address, size, data):
         self._count += 1

@@ -20,6 +20,8 @@ import numpy as np
 
 from affix.arithmetic import ctype_bits
 from affix.errors import ToolError
+from affix.record import nominal_record, record_size
+from affix.unit_ids import UNIT_ID_BYTES
 from affix.targets import get_target
 from affix.targets.emulator import SCRATCH, SCRATCH_SIZE, Emulator
 from affix.targets.toolchain import OPTIMIZE, build_image, compiler_path
@@ -32,40 +34,76 @@ _DTYPES = {"int8_t": "<i1", "uint8_t": "<u1", "int16_t": "<i2", "uint16_t": "<u2
 
 
 class EmulatedEstimator:
-    """The emitted C of ``emit_dir`` built for ``target`` and loaded into its emulated core."""
+    """The emitted C of ``emit_dir`` built for ``target`` and loaded into its emulated core.
+
+    For code that loads a calibration record, ``evaluate`` needs the record's bytes (``record=``),
+    which NAME_record_load() unpacks on the core before the calls, and ``load(data)`` is what it
+    returns for them."""
 
     def __init__(self, emit_dir, manifest, target, work_dir):
         self.target = get_target(target)
         self.manifest = manifest
         name = manifest["name"]
-        self.function = f"{name}_estimate"
+        self.records = manifest.get("interface", {}).get("coefficients") == "record"
+        self.function = f"{name}_estimate_record" if self.records else f"{name}_estimate"
+        self._loader = f"{name}_record_load"
         emit_dir = Path(emit_dir).resolve()
         self.image = build_image(self.target, [emit_dir / f"{name}.c"], self.function, work_dir,
-                                 include_dirs=[emit_dir])
+                                 include_dirs=[emit_dir], keep=[self._loader] if self.records else [])
         emulated = self.target.emulator not in (None, SIMAVR)
         self.emulator = Emulator(self.image.elf, self.target.emulator) if emulated else None
         self._in = np.dtype(_DTYPES[manifest["input_ctype"]])
         self._out = np.dtype(_DTYPES[manifest["output_ctype"]])
         self._n_in, self._n_out = len(manifest["inputs"]), len(manifest["outputs"])
-        if self._n_in * self._in.itemsize + self._n_out * self._out.itemsize + 8 > SCRATCH_SIZE:
+        # Scratch memory: the inputs, the outputs, then (code that loads records) the record's bytes
+        # and the struct the loader fills (per row at most 16 bytes of start and shift and 8 per coefficient,
+        # then the unit id).
+        self._x_at = SCRATCH + _rounded(self._n_in * self._in.itemsize)
+        self._data_at = self._x_at + _rounded(self._n_out * self._out.itemsize)
+        self._rec_at = self._data_at + _rounded(record_size(self._n_out, self._n_in, manifest["coef_bits"])
+                                                if self.records else 0)
+        end = self._rec_at + (self._n_out * (16 + 8 * self._n_in) + UNIT_ID_BYTES + 8 if self.records else 0)
+        if end > SCRATCH + SCRATCH_SIZE:
             raise ValueError("the estimator's arguments do not fit the emulator's scratch memory")
 
-    def evaluate(self, vectors, *, count: bool = False) -> tuple[np.ndarray, list[int], int]:
+    def load(self, data: bytes) -> int:
+        """NAME_record_load()'s code for ``data`` on the core (0: loaded)."""
+        self._require_emulator()
+        if len(data) > self._rec_at - self._data_at:
+            raise ValueError("the record does not fit the emulator's scratch memory")
+        self.emulator.write(self._data_at, data)
+        self.emulator.call(self._loader, self._rec_at, self._data_at, len(data))
+        return self.emulator.result(signed=True)
+
+    def evaluate(self, vectors, *, count: bool = False, record: bytes | None = None
+                 ) -> tuple[np.ndarray, list[int], int]:
         """Outputs for each row of ``vectors``; instructions per call (with ``count``); deepest stack."""
-        if self.emulator is None:
-            raise ValueError(f"target {self.target.name} is not emulated")
-        y_at = SCRATCH
-        x_at = SCRATCH + -(-self._n_in * self._in.itemsize // 8) * 8
+        self._require_emulator()
+        if self.records != (record is not None):
+            raise ValueError("code that loads records needs one (record=), other code takes none")
+        if self.records and self.load(record) != 0:
+            raise ToolError(f"{self._loader}() refuses the record on the emulated {self.target.name}")
+        before = (self._rec_at,) if self.records else ()
         rows = np.asarray(vectors)
         outputs = np.empty((len(rows), self._n_out), dtype=np.int64)
         counts, deepest = [], 0
         for k, row in enumerate(rows):
-            self.emulator.write(y_at, np.asarray(row).astype(self._in).tobytes())
-            executed, stack = self.emulator.call(self.function, y_at, x_at, count=count)
-            outputs[k] = np.frombuffer(self.emulator.read(x_at, self._n_out * self._out.itemsize), dtype=self._out)
+            self.emulator.write(SCRATCH, np.asarray(row).astype(self._in).tobytes())
+            executed, stack = self.emulator.call(self.function, *before, SCRATCH, self._x_at, count=count)
+            outputs[k] = np.frombuffer(self.emulator.read(self._x_at, self._n_out * self._out.itemsize),
+                                       dtype=self._out)
             counts.append(executed)
             deepest = max(deepest, stack)
         return outputs, counts, deepest
+
+    def _require_emulator(self) -> None:
+        if self.emulator is None:
+            raise ValueError(f"target {self.target.name} is not emulated")
+
+
+def _rounded(size: int) -> int:
+    """``size`` rounded up to a multiple of 8 bytes (every argument 8-byte aligned)."""
+    return -(-size // 8) * 8
 
 
 def measurement_vectors(input_ranges, count: int = COUNTED_VECTORS, seed: int = 0) -> np.ndarray:
@@ -120,7 +158,8 @@ def target_figures(emit_dir, target) -> dict:
         }
         vectors = measurement_vectors(manifest["input_ranges"])
         if code.emulator is not None:
-            _, counts, stack = code.evaluate(vectors, count=True)
+            _, counts, stack = code.evaluate(vectors, count=True,
+                                             record=nominal_record(manifest) if code.records else None)
             figures.update(instructions_per_evaluation=float(np.mean(counts)), instructions_max=max(counts),
                            stack_bytes_measured=stack)
         elif target.emulator == SIMAVR:
