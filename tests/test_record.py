@@ -31,6 +31,9 @@ PLANS = {
     "32-bit, acc64, uint16 box": dict(seed=22, n_inputs=5, n_outputs=2, ranges="uint16", coef_bits=32, acc_bits=64,
                                       output_ctype="int32_t"),
     "8-bit, acc32, floor": dict(seed=23, n_inputs=2, n_outputs=2, ranges="uint8", coef_bits=8, rounding="floor"),
+    # Every nominal shift 32 or more: the code tests each loaded shift and floors the high word alone.
+    "32-bit, acc64, shifts from 32": dict(seed=24, n_inputs=4, n_outputs=3, ranges="int16", coef_bits=32,
+                                          acc_bits=64, gain_scale=1e3),
 }
 TYPE_LIMITS = {"int8_t": ("INT8_MIN", "INT8_MAX"), "uint8_t": ("0", "UINT8_MAX"), "int16_t": ("INT16_MIN", "INT16_MAX"),
                "uint16_t": ("0", "UINT16_MAX"), "int32_t": ("INT32_MIN", "INT32_MAX"), "uint32_t": ("0", "UINT32_MAX")}

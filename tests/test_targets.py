@@ -76,11 +76,14 @@ def test_bit_exact_on_the_emulated_core(tmp_path, target, plan_kind, style):
 
 
 @pytest.mark.parametrize("target", EMULATED)
-@pytest.mark.parametrize("plan_kind", ["16/32 int16 7x5", "32/64 int16 9x11 saturating", "8/32 uint16 5x3 floor"])
+@pytest.mark.parametrize("plan_kind", ["16/32 int16 7x5", "32/64 int16 9x11 saturating", "8/32 uint16 5x3 floor",
+                                       "32/64 int16 6x4 saturating"])
 def test_code_that_loads_records_is_bit_exact_on_the_emulated_core(tmp_path, target, plan_kind):
-    # The record's estimator shares the table loop (four rows per pass on the M4 and M7): a unit's
-    # record, loaded by NAME_record_load() on the core, then run over the box, against the reference
-    # with that record's integers (affix.record.decode); damaged copies refused for the reference's reasons.
+    # The record's estimator shares the table loop (four rows per pass on the M4 and M7; pairs through
+    # SMLAD where the core has it): a unit's record, loaded by NAME_record_load() on the core, then run
+    # over the box, against the reference with that record's integers (affix.record.decode); damaged
+    # copies refused for the reference's reasons.  In the last plan the nominal unit's shifts are all
+    # 32 or more and this unit's first is 31: both floors of a 64-bit sum.
     from affix.record import CODE, Contract, decode, encode
 
     require(get_target(target).compiler)
@@ -177,14 +180,18 @@ def test_every_table_loop_makes_two_passes_or_more():
 
 @pytest.mark.parametrize("plan_kind,style", [("16/32 int16 7x5", "table"), ("16/32 int16 7x5", "unrolled"),
                                              ("16/64 uint8 3x2", "table"), ("16/64 uint8 3x2", "unrolled"),
-                                             ("32/64 int16 6x4 saturating", "unrolled")])
+                                             ("32/64 int16 6x4 saturating", "unrolled"),
+                                             ("16/32 int16 7x5", "record"), ("16/64 uint8 3x2", "record")])
 def test_the_dsp_paths_build_cleanly_as_c99_and_cxx11(tmp_path, plan_kind, style):
     # The code under __ARM_FEATURE_DSP only compiles where the core has it: the
-    # strict warning set as errors (tests/test_emit_c.py), for the M4, in C99 and C++11.
+    # strict warning set as errors (tests/test_emit_c.py), for the M4, in C99 and C++11;
+    # "record": table-style code that loads records, whose loader packs the pairs.
     from test_emit_c import C_FLAGS, CXX_FLAGS, STRICTER
 
     plan = random_plan(**PLANS[plan_kind])
-    out, _ = _emit(tmp_path, plan, "cortex-m4", style)
+    out = tmp_path / style
+    emit(replace(plan, target="cortex-m4"), lang="c", style="table" if style == "record" else style, name="probe",
+         out_dir=out, coefficients="record" if style == "record" else "compiled")
     source = (out / "probe.c").read_text()
     assert "__smlald(" in source or "__smlad(" in source or "__smuad(" in source
     cpu = ["-mcpu=cortex-m4", "-mthumb", "-O2", "-DPROBE_SELFTEST", "-c", str(out / "probe.c"), "-o",

@@ -50,9 +50,12 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
     records = interface.coefficients == "record"
     # A 64-bit sum whose every shift is 32 or more is floored from its high word
     # alone (floor(floor(v / 2^32) / 2^(s-32)) = floor(v / 2^s)): 32-bit work.
-    # A record's shifts are known only at run time: any of 0 .. acc_bits - 1.
+    # A record's shifts are known only at run time (any of 0 .. acc_bits - 1): its
+    # code tests each for 32 or more where the nominal unit's all are
+    # (runtime_high_shift), and floors the whole sum otherwise.
     applied_shifts = [min(s, plan.acc_bits - 1) for s in plan.shifts]
-    high_shift = plan.acc_bits == 64 and min(applied_shifts, default=0) >= 32 and not records
+    by_high_word = plan.acc_bits == 64 and min(applied_shifts, default=0) >= 32
+    high_shift = by_high_word and not records
     split = arith == "int" and style == "unrolled" and split_applies(plan, target)
     type_lo, type_hi = INPUT_CTYPES[in_ctype]
     out_lo, out_hi = OUTPUT_CTYPES[plan.output_ctype]
@@ -135,7 +138,7 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
         "outputs": outputs,
         "input_ctype": in_ctype,
         "target": target.name,
-        "dual_mac": arith == "int" and not records and (dual_mac_applies(plan, target) or split),
+        "dual_mac": arith == "int" and (dual_mac_applies(plan, target) or split),
         "split_mac": split,
         "input_pairs": [(j, j + 1 if j + 1 < len(inputs) else None) for j in range(0, len(inputs), 2)],
         "input_type_bits": ctype_bits(in_ctype),
@@ -148,6 +151,7 @@ def build_context(plan, name: str, interface, *, arith: str = "int", style: str 
         "output_max": out_hi,
         "acc_bits": plan.acc_bits,
         "high_shift": high_shift,
+        "runtime_high_shift": by_high_word and records,
         "narrow_products": plan.acc_bits == 64 and any(t["product_bits"] == 32 for o in outputs for t in o["terms"]),
         "q_bits": 32 if high_shift else plan.acc_bits,  # width of the floored value q
         "passes": table_passes(len(outputs), target.outputs_per_pass),
