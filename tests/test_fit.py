@@ -284,12 +284,13 @@ def test_a_spread_past_double_precision_is_refused_naming_the_column():
     # values the sum of squared deviations passes float64's 1.8e308: moments
     # of that size stand in for a file of that size.
     from affix.errors import DataError
-    from affix.fit.estimator import _check_rows
+    from affix.fit.estimator import model_from_parts
     from affix.statistics import Moments
 
     huge = Moments(10**9, np.zeros(3), np.diag([1.0, np.inf, 1.0]), np.zeros(3), np.zeros(3))
     with pytest.raises(DataError, match=r"^log.csv, column 'y2': the sum of squared deviations overflows"):
-        _check_rows(huge, ["y1", "y2"], ["y1", "y2", "x"], "log.csv")
+        model_from_parts([huge], ["y1", "y2"], ["x"], ridge=0.0, folds=0, data_sha256=None, dropped_rows=0,
+                         path="log.csv")
 
 
 @pytest.mark.bad_input("fit")

@@ -6,7 +6,7 @@ import pandas as pd
 import pytest
 
 import affix
-from affix.errors import DataError
+from affix.errors import DataError, FitError
 from affix.fleet.fit import fit_fleet
 from affix.statistics import fold_of
 
@@ -106,6 +106,48 @@ def test_units_that_cannot_be_fitted_are_named(tmp_path):
     assert sorted(fleet.rejected) == ["SN0001", "SN0002"]
     assert sorted(fleet.models) == ["SN0000", "SN0003"]
     assert fleet.units == ("SN0000", "SN0001", "SN0002", "SN0003")
+
+
+@pytest.mark.bad_input("fit")
+def test_units_solved_together_fare_as_each_alone(tmp_path):
+    """The fleet solves all its units in one stack: each unit's model, error or warning is exactly
+    what its own moments give alone, whatever the units beside it (a singular one, a nearly collinear
+    one, one whose cross-validation split is singular)."""
+    import warnings
+
+    from affix.fit.estimator import files_moments, model_from_parts
+
+    rng = np.random.default_rng(8)
+    log = fleet_log(rng, units=6, rows=400)
+    folds = fold_of(0, len(log), 5)
+    g1, g2 = log["g1"].to_numpy(), log["g2"].to_numpy()
+    exact = (log.serial == "SN0001").to_numpy()
+    log.loc[exact, "g3"] = g1[exact] + g2[exact]  # singular: no fit at all
+    near = (log.serial == "SN0002").to_numpy()
+    log.loc[near, "g3"] = g1[near] - g2[near] + rng.normal(0, 2.0, near.sum())  # fitted, with a warning
+    split = (log.serial == "SN0004").to_numpy()
+    log.loc[split & (folds != 2), "g3"] = 0.0  # g3 moves only in fold 2: training without it is singular
+    path = tmp_path / "fleet.csv"
+    log.to_csv(path, index=False)
+    fleet = fit_fleet(path, INPUTS, OUTPUTS, "serial", skip_bad_units=True)
+    assert sorted(fleet.rejected) == ["SN0001", "SN0004"] and len(fleet.warnings) == 1
+    assert "do not determine the gains" in fleet.rejected["SN0001"]
+    assert "cross-validation split leaves the inputs singular" in fleet.rejected["SN0004"]
+    parts, _, sha256 = files_moments([path], INPUTS + OUTPUTS, 5, None, False, labels="serial")
+    for unit in fleet.units:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            try:
+                alone = model_from_parts(parts.moments(unit), INPUTS, OUTPUTS, ridge=0.0, folds=5,
+                                         data_sha256=sha256, dropped_rows=0)
+            except FitError as exc:
+                assert fleet.rejected[unit] == exc.marked
+                continue
+        assert [f"unit {unit}: {w.message}" for w in caught] == [w for w in fleet.warnings if unit in w]
+        model = fleet.models[unit]
+        for key in ("gain", "offset", "error_covariance", "cv_rms", "input_covariance"):
+            np.testing.assert_array_equal(getattr(model, key), getattr(alone, key), err_msg=key)
+        assert model.condition_number == alone.condition_number and model.n_samples == alone.n_samples
 
 
 @pytest.mark.bad_input("fit")

@@ -20,9 +20,11 @@ SINGULAR_CONDITION = 1e12
 TARGET_CONDITION = 1e6
 
 
-def condition_number(r: np.ndarray) -> float:
+def condition_number(r: np.ndarray) -> np.ndarray:
+    """Of R, or of each matrix of a stack (an array of the stack's shape); infinite where R is not positive definite."""
     w = np.linalg.eigvalsh(r)
-    return math.inf if w[0] <= 0 else float(w[-1] / w[0])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(w[..., 0] <= 0, np.inf, w[..., -1] / w[..., 0])
 
 
 def collinear_inputs(r: np.ndarray, names) -> list[str]:

@@ -14,17 +14,17 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from affix.errors import DataError, FitError, UsageError, parameter
+from affix.errors import AffixError, DataError, FitError, UsageError, parameter
 from affix.fit import conditioning
 from affix.fit.adopt import adopt, default_names, is_fitted_linear
 from affix.fit.blocks import Pass
 from affix.fit.engines import engine_for
 from affix.fit.passes import stream_moments
-from affix.fit.solve import correlation, cross_validated_rms, error_covariance, solve
+from affix.fit.solve import Solution, correlation, cross_validated_rms, error_covariance, solve
 from affix.intake import from_array
 from affix.intake.sources import data_files
 from affix.model import Model
-from affix.statistics import MAX_FOLDS, merge_all
+from affix.statistics import MAX_FOLDS, Moments, merge_all
 
 
 # Below this magnitude a value's square underflows to zero or loses digits
@@ -106,36 +106,75 @@ def model_from_parts(parts, inputs, outputs, *, ridge, folds, data_sha256, dropp
     Raises DataError for too few rows or a constant input, FitError for a
     singular fit or cross-validation; ``path`` is what a DataError names.
     Warns CollinearityWarning above the conditioning limit."""
-    m, width = len(inputs), len(inputs) + len(outputs)
-    moments = merge_all(parts, width)
-    _check_rows(moments, inputs, inputs + outputs, path)
-    r = correlation(moments, m)
-    condition = conditioning.condition_number(r)
-    solution = _solve(moments, m, ridge, r, condition, inputs)
-    if ridge == 0 and condition > conditioning.WARN_CONDITION:
-        names = conditioning.collinear_inputs(r, inputs)
-        message = conditioning.describe(names, condition) + "; their gains are poorly determined"
+    (outcome,), notes = models_from_parts([Moments.stack([part]) for part in parts], inputs, outputs, ridge=ridge,
+                                          folds=folds, data_sha256=data_sha256, dropped_rows=dropped_rows, path=path)
+    for message in notes.values():
         warnings.warn(message, CollinearityWarning, stacklevel=2)
-    cv_rms = _cross_validate(parts, m, ridge) if folds >= 2 else None
-    covariance = moments.covariance
-    return Model(
-        inputs=inputs,
-        outputs=outputs,
-        gain=solution.gain,
-        offset=solution.offset,
-        error_covariance=error_covariance(moments, solution),
-        cv_rms=cv_rms,
-        n_samples=moments.count,
-        input_mean=moments.mean[:m],
-        input_covariance=covariance[:m, :m],
-        input_min=moments.low[:m],
-        input_max=moments.high[:m],
-        ridge=float(ridge),
-        folds=folds,
-        condition_number=condition if math.isfinite(condition) else None,
-        data_sha256=data_sha256,
-        dropped_rows=dropped_rows,
-    )
+    if isinstance(outcome, AffixError):
+        raise outcome
+    return outcome
+
+
+def models_from_parts(parts, inputs, outputs, *, ridge, folds, data_sha256, dropped_rows, path=None):
+    """A Model for each data set of a stack, all solved together: ``parts`` holds one
+    stack of moments per fold, each with the sets along its first axis (see
+    :mod:`affix.statistics.moments`).
+
+    Returns (outcomes, notes): outcomes[k] is set k's Model, or the error that
+    keeps it from one (the error :func:`model_from_parts` raises for that set
+    alone); notes maps each set whose inputs are nearly collinear to the
+    warning's message.  A set's figures are those of its fit alone."""
+    m, n_out, width = len(inputs), len(outputs), len(inputs) + len(outputs)
+    moments = merge_all(parts, width)
+    size = len(moments.count)
+    errors = _row_problems(moments, inputs, inputs + outputs, path)
+    usable = np.array([k for k in range(size) if k not in errors], dtype=np.intp)
+    condition = np.full(size, np.inf)
+    condition[usable] = conditioning.condition_number(correlation(moments[usable], m))
+    tried = usable[(ridge > 0) | (condition[usable] <= conditioning.SINGULAR_CONDITION)]
+    solution, solved = _where_defined(lambda units: solve(moments[units], m, ridge), tried)
+    for k in np.setdiff1d(usable, solved):
+        errors[k] = _undetermined(moments[k], m, ridge, condition[k], inputs)
+    notes = {k: _collinear(moments[k], m, condition[k], inputs) for k in solved
+             if ridge == 0 and condition[k] > conditioning.WARN_CONDITION}
+    gain, offset = np.empty((size, n_out, m)), np.empty((size, n_out))
+    gain[solved], offset[solved] = solution.gain, solution.offset
+    fitted, cv_rms = solved, None
+    if folds >= 2:
+        errors.update(_fold_problems(parts, solved, m))
+        checked = np.array([k for k in solved if k not in errors], dtype=np.intp)
+        scores, fitted = _where_defined(lambda units: cross_validated_rms([p[units] for p in parts], m, ridge), checked)
+        for k in np.setdiff1d(checked, fitted):
+            errors[k] = FitError(f"a {len(parts)}-fold cross-validation split leaves the inputs singular; "
+                                 f"set {parameter('ridge')} or lower {parameter('folds')}")
+        cv_rms = np.empty((size, n_out))
+        cv_rms[fitted] = scores
+    fit = moments[fitted]
+    residual = np.empty((size, n_out, n_out))
+    residual[fitted] = error_covariance(fit, Solution(gain[fitted], offset[fitted]))
+    covariance = np.empty((size, m, m))
+    covariance[fitted] = fit.covariance[:, :m, :m]
+    outcomes = [errors.get(k) for k in range(size)]
+    for k in fitted.tolist():
+        outcomes[k] = Model(
+            inputs=inputs,
+            outputs=outputs,
+            gain=gain[k],
+            offset=offset[k],
+            error_covariance=residual[k],
+            cv_rms=None if cv_rms is None else cv_rms[k],
+            n_samples=int(moments.count[k]),
+            input_mean=moments.mean[k, :m],
+            input_covariance=covariance[k],
+            input_min=moments.low[k, :m],
+            input_max=moments.high[k, :m],
+            ridge=float(ridge),
+            folds=folds,
+            condition_number=float(condition[k]) if math.isfinite(condition[k]) else None,
+            data_sha256=data_sha256,
+            dropped_rows=dropped_rows,
+        )
+    return outcomes, notes
 
 
 def files_moments(paths, columns, folds, chunk_rows, drop_invalid, labels=None, engine="local"):
@@ -199,59 +238,83 @@ def check_names(inputs, outputs):
     return inputs, outputs
 
 
-def _check_rows(moments, inputs, columns, path):
+def _row_problems(moments, inputs, columns, path) -> dict:
+    """The error for each set of a stack of moments whose rows cannot determine a fit:
+    too few, a spread past double precision, an input constant or too small to square."""
     m, n = len(inputs), moments.count
+    scatter = np.diagonal(moments.scatter, axis1=-2, axis2=-1)
+    mean = np.abs(moments.mean[:, :m])
+    with np.errstate(divide="ignore", invalid="ignore"):  # sets of one row or none fail the first test
+        spread = np.sqrt(scatter[:, :m] / (n[:, None] - 1))
+    too_small = (spread == 0) & (0 < mean) & (mean < _SMALLEST_SQUARED)
+    constant = spread <= 8 * np.finfo(float).eps * mean
+    finite = np.isfinite(scatter)
+    problems = {}
+    for k in np.flatnonzero((n < m + 2) | ~finite.all(axis=1) | (too_small | constant).any(axis=1)).tolist():
+        problems[k] = _rows_problem(int(n[k]), finite[k], moments.mean[k], too_small[k], constant[k], inputs, columns,
+                                    path)
+    return problems
+
+
+def _rows_problem(n, finite, mean, too_small, constant, inputs, columns, path) -> DataError:
+    m = len(inputs)
     if n < m + 2:
-        raise DataError(f"only {n} usable row(s); fitting {m} input(s) needs at least {m + 2}", path)
-    for name, finite in zip(columns, np.isfinite(np.diag(moments.scatter))):
-        if not finite:  # each value is below LARGEST_VALUE, but the spread of very many is not
-            raise DataError(
-                "the sum of squared deviations overflows double precision; rescale the column", path, column=name
-            )
-    spread = np.sqrt(np.diag(moments.scatter)[:m] / (n - 1))
-    for name, mean, sd in zip(inputs, moments.mean[:m], spread):
-        if sd == 0 and 0 < abs(mean) < _SMALLEST_SQUARED:
-            raise DataError(
-                f"values near {mean:.3g} are too small to square in double precision (below "
-                f"{_SMALLEST_SQUARED:.0e}); rescale the column",
-                path,
-                column=name,
-            )
-        if sd <= 8 * np.finfo(float).eps * abs(mean):
-            raise DataError(
-                f"input column is constant ({mean:.6g} in every row), so it carries no information; leave it out",
-                path,
-                column=name,
-            )
+        return DataError(f"only {n} usable row(s); fitting {m} input(s) needs at least {m + 2}", path)
+    if not finite.all():  # each value is below LARGEST_VALUE, but the spread of very many is not
+        return DataError("the sum of squared deviations overflows double precision; rescale the column", path,
+                         column=columns[int(np.argmin(finite))])
+    j = int(np.argmax(too_small | constant))
+    if too_small[j]:
+        return DataError(f"values near {mean[j]:.3g} are too small to square in double precision (below "
+                         f"{_SMALLEST_SQUARED:.0e}); rescale the column", path, column=inputs[j])
+    return DataError(f"input column is constant ({mean[j]:.6g} in every row), so it carries no information; "
+                     "leave it out", path, column=inputs[j])
 
 
-def _solve(moments, m, ridge, r, condition, inputs):
-    if ridge > 0 or condition <= conditioning.SINGULAR_CONDITION:
-        try:
-            return solve(moments, m, ridge)
-        except np.linalg.LinAlgError:
-            pass
+def _where_defined(compute, units):
+    """(compute(units), units): ``compute`` of a stack's sets at once.  Where LAPACK
+    refuses a matrix of some set, only the sets it accepts on their own, and those sets."""
+    try:
+        return compute(units), units
+    except np.linalg.LinAlgError:
+        accepted = np.array([k for k in units if _accepts(compute, k)], dtype=np.intp)
+        return compute(accepted), accepted
+
+
+def _accepts(compute, k) -> bool:
+    try:
+        compute(np.array([k]))
+    except np.linalg.LinAlgError:
+        return False
+    return True
+
+
+def _undetermined(moments, m, ridge, condition, inputs) -> FitError:
+    r = correlation(moments, m)
     suggestion = max(conditioning.suggested_ridge(r), 10 * ridge)
-    raise FitError(
+    return FitError(
         conditioning.describe(conditioning.collinear_inputs(r, inputs), condition)
         + f": they do not determine the gains; pass {parameter('ridge')}={suggestion:g} or leave one of them out"
     )
 
 
-def _cross_validate(parts, m, ridge):
-    total = sum(p.count for p in parts)
-    if len(parts) > total:
-        raise UsageError(f"{len(parts)} folds need at least as many usable rows; the data have {total}", parameter="folds")
-    smallest = total - max(p.count for p in parts)
-    if smallest < m + 2:
-        raise FitError(
-            f"too few rows for {len(parts)}-fold cross-validation: a training split would hold only "
-            f"{smallest} rows for {m} input(s); lower {parameter('folds')}, or set it to 0 to skip cross-validation"
-        )
-    try:
-        return cross_validated_rms(parts, m, ridge)
-    except np.linalg.LinAlgError:
-        raise FitError(
-            f"a {len(parts)}-fold cross-validation split leaves the inputs singular; "
-            f"set {parameter('ridge')} or lower {parameter('folds')}"
-        ) from None
+def _collinear(moments, m, condition, inputs) -> str:
+    names = conditioning.collinear_inputs(correlation(moments, m), inputs)
+    return conditioning.describe(names, condition) + "; their gains are poorly determined"
+
+
+def _fold_problems(parts, sets, m) -> dict:
+    """The error for each of ``sets`` whose folds are too small to cross-validate a fit."""
+    counts = np.stack([np.asarray(p.count) for p in parts])[:, sets]
+    total, largest = counts.sum(axis=0), counts.max(axis=0)
+    problems = {}
+    for k, rows, smallest in zip(sets.tolist(), total.tolist(), (total - largest).tolist()):
+        if len(parts) > rows:
+            problems[k] = UsageError(f"{len(parts)} folds need at least as many usable rows; the data have {rows}",
+                                     parameter="folds")
+        elif smallest < m + 2:
+            problems[k] = FitError(
+                f"too few rows for {len(parts)}-fold cross-validation: a training split would hold only "
+                f"{smallest} rows for {m} input(s); lower {parameter('folds')}, or set it to 0 to skip "
+                "cross-validation")
+    return problems

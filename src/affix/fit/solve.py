@@ -11,6 +11,11 @@ ill-conditioning that mere offsets and units (ADC counts next to volts)
 would add.  Equivalently A = S_xy (S_yy + ridge * diag(S_yy))^-1: the
 ridge is relative to each input's own variance, so it does not depend on the
 inputs' units nor on the number of rows.  The offset is b = mean_x - A mean_y.
+
+Every function takes a stack of moments as well as one set (see
+:mod:`affix.statistics.moments`) and solves each set of the stack on its
+own, with NumPy's stacked linear algebra: a fleet's thousand units cost a
+few calls, not a thousand.
 """
 from __future__ import annotations
 
@@ -23,46 +28,51 @@ from affix.statistics import Moments
 
 @dataclass(frozen=True, eq=False)
 class Solution:
-    gain: np.ndarray  # (n_outputs, n_inputs)
-    offset: np.ndarray  # (n_outputs,)
+    gain: np.ndarray  # (..., n_outputs, n_inputs)
+    offset: np.ndarray  # (..., n_outputs)
 
 
 def input_scales(moments: Moments, n_inputs: int) -> np.ndarray:
-    return np.sqrt(np.diag(moments.scatter)[:n_inputs])
+    return np.sqrt(_diagonal(moments.scatter)[..., :n_inputs])
 
 
 def correlation(moments: Moments, n_inputs: int) -> np.ndarray:
     """R: the input scatter with every input scaled to unit variance."""
     d = input_scales(moments, n_inputs)
-    return moments.scatter[:n_inputs, :n_inputs] / np.outer(d, d)
+    return moments.scatter[..., :n_inputs, :n_inputs] / (d[..., :, None] * d[..., None, :])
 
 
 def solve(moments: Moments, n_inputs: int, ridge: float = 0.0) -> Solution:
-    """Raises numpy.linalg.LinAlgError when R + ridge*I is not numerically positive definite."""
+    """Raises numpy.linalg.LinAlgError when R + ridge*I is not numerically positive definite
+    (for any set of a stack), or not even defined: an input that does not vary (LAPACK would
+    pass the NaNs of R through)."""
     m = n_inputs
     d = input_scales(moments, m)
-    rhs = moments.scatter[:m, m:] / d[:, None]
+    if not np.all(d > 0):
+        raise np.linalg.LinAlgError("an input does not vary")
+    rhs = moments.scatter[..., :m, m:] / d[..., :, None]
     lower = np.linalg.cholesky(correlation(moments, m) + ridge * np.eye(m))
-    z = np.linalg.solve(lower.T, np.linalg.solve(lower, rhs))
-    gain = (z / d[:, None]).T
-    offset = moments.mean[m:] - gain @ moments.mean[:m]
-    return Solution(gain, offset)
+    z = np.linalg.solve(_transposed(lower), np.linalg.solve(lower, rhs))
+    gain = _transposed(z / d[..., :, None])
+    return Solution(gain, moments.mean[..., m:] - _times(gain, moments.mean[..., :m]))
 
 
 def residual_scatter(moments: Moments, solution: Solution) -> np.ndarray:
     """Sum over the rows of e e^T, e = x - A y - b: [-A, I] S [-A, I]^T + n r r^T,
     r the mean residual.  For the least-squares fit on the same rows r = 0 and
     this is S_xx - A S_yx; it also holds for ridge fits and for held-out rows."""
-    n_out, m = solution.gain.shape
-    weights = np.hstack([-solution.gain, np.eye(n_out)])
-    r = moments.mean[m:] - solution.gain @ moments.mean[:m] - solution.offset
-    e = weights @ moments.scatter @ weights.T + moments.count * np.outer(r, r)
-    return (e + e.T) / 2
+    gain = solution.gain
+    n_out, m = gain.shape[-2:]
+    weights = np.concatenate([-gain, np.broadcast_to(np.eye(n_out), gain.shape[:-1] + (n_out,))], axis=-1)
+    r = moments.mean[..., m:] - _times(gain, moments.mean[..., :m]) - solution.offset
+    count = np.asarray(moments.count)[..., None, None]
+    e = weights @ moments.scatter @ _transposed(weights) + count * (r[..., :, None] * r[..., None, :])
+    return (e + _transposed(e)) / 2
 
 
 def error_covariance(moments: Moments, solution: Solution) -> np.ndarray:
     """Residual covariance on the fitting rows, 1/(n-1) scaling like every covariance here."""
-    return residual_scatter(moments, solution) / (moments.count - 1)
+    return residual_scatter(moments, solution) / (np.asarray(moments.count)[..., None, None] - 1)
 
 
 def cross_validated_rms(parts: list[Moments], n_inputs: int, ridge: float) -> np.ndarray:
@@ -76,7 +86,21 @@ def cross_validated_rms(parts: list[Moments], n_inputs: int, ridge: float) -> np
     for early, late in zip(parts[:-1], parts[:0:-1]):
         before.append(before[-1].merge(early))
         after.append(after[-1].merge(late))
-    squared = np.zeros(width - n_inputs)
+    squared = 0.0
     for held_out, early, late in zip(parts, before, reversed(after)):
-        squared += np.diag(residual_scatter(held_out, solve(early.merge(late), n_inputs, ridge)))
-    return np.sqrt(np.clip(squared, 0.0, None) / sum(p.count for p in parts))
+        squared = squared + _diagonal(residual_scatter(held_out, solve(early.merge(late), n_inputs, ridge)))
+    rows = np.asarray(sum(p.count for p in parts))[..., None]
+    return np.sqrt(np.clip(squared, 0.0, None) / rows)
+
+
+def _diagonal(matrices: np.ndarray) -> np.ndarray:
+    return np.diagonal(matrices, axis1=-2, axis2=-1)
+
+
+def _transposed(matrices: np.ndarray) -> np.ndarray:
+    return np.swapaxes(matrices, -1, -2)
+
+
+def _times(matrices: np.ndarray, vectors: np.ndarray) -> np.ndarray:
+    """Each matrix of a stack times its vector."""
+    return (matrices @ vectors[..., None])[..., 0]

@@ -9,19 +9,18 @@ rows, a constant input, a singular fit) is named with the reason; with
 """
 from __future__ import annotations
 
-import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from affix.errors import AffixError, DataError, UsageError, parameter
-from affix.fit.estimator import CollinearityWarning, check_arguments, check_names, files_moments, model_from_parts
+from affix.fit.estimator import check_arguments, check_names, files_moments, models_from_parts
 from affix.fit.passes import stream_moments
 from affix.intake import from_array
 from affix.intake.sources import data_files
 from affix.model import Model
-from affix.statistics import merge_all
+from affix.statistics import merge_along
 from affix.unit_ids import case_clashes
 
 _NAMED = 5  # bad units a message names one by one before it counts the rest
@@ -90,26 +89,26 @@ def fit_fleet(data, inputs, outputs, unit_column: str, *, ridge: float = 0.0, fo
         raise DataError("no rows with a unit id", path, column=unit_column)
     result = FleetFit(inputs, outputs, unit_column, parts.units, parts.rows(), {}, data_sha256=sha256,
                       dropped_rows=dropped)
-    for unit in parts.units:
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            try:
-                result.models[unit] = model_from_parts(parts.moments(unit), inputs, outputs, ridge=ridge,
-                                                       folds=folds, data_sha256=sha256, dropped_rows=0)
-            except AffixError as exc:
-                result.rejected[unit] = exc.marked
-        result.warnings += [f"unit {unit}: {w.message}" for w in caught]
+    stack = parts.stacked  # every unit solved at once: leading axes (unit, fold)
+    outcomes, notes = models_from_parts([stack[:, f] for f in range(parts.folds)], inputs, outputs, ridge=ridge,
+                                        folds=folds, data_sha256=sha256, dropped_rows=0)
+    for unit, outcome in zip(parts.units, outcomes):
+        if isinstance(outcome, AffixError):
+            result.rejected[unit] = outcome.marked
+        else:
+            result.models[unit] = outcome
+    result.warnings = [f"unit {parts.units[k]}: {message}" for k, message in sorted(notes.items())]
     if result.rejected and not skip_bad_units:
         raise DataError(f"{bad_units_text(result.rejected)}; fix their data, or leave them out with "
                         f"{parameter('skip_bad_units')}", path, column=unit_column)
     if not result.models:
         raise DataError(f"no unit can be fitted: {bad_units_text(result.rejected)}", path, column=unit_column)
-    fitted = [parts.moments(unit) for unit in result.models]
-    pooled = [merge_all([unit[f] for unit in fitted], len(columns)) for f in range(parts.folds)]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", CollinearityWarning)  # each unit's own warning has been noted
-        result.pooled = model_from_parts(pooled, inputs, outputs, ridge=ridge, folds=folds, data_sha256=sha256,
-                                         dropped_rows=dropped)
+    fitted = [k for k, outcome in enumerate(outcomes) if not isinstance(outcome, AffixError)]
+    pooled = merge_along(stack[fitted])  # the fitted units' rows together, fold by fold
+    (result.pooled,), _ = models_from_parts([pooled[f : f + 1] for f in range(parts.folds)], inputs, outputs,
+                                            ridge=ridge, folds=folds, data_sha256=sha256, dropped_rows=dropped)
+    if isinstance(result.pooled, AffixError):
+        raise result.pooled
     return result
 
 

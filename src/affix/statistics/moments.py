@@ -12,6 +12,12 @@ update of Chan, Golub & LeVeque (1979),
 which never forms raw sums of squares, so large offsets (ADC counts near
 full scale) cost no precision, and parts merge in any order to the same
 result up to rounding; the extremes merge exactly, element by element.
+
+A Moments can also be a *stack*: many sets of rows at once (the units of a
+fleet, their folds), every field with the same leading axes, ``count`` of
+that shape.  Merging and everything the fit derives from moments works on
+stacks element by element, with the same operations in the same order as
+on one set, so a set's figures do not depend on whether it was in a stack.
 """
 from __future__ import annotations
 
@@ -22,11 +28,11 @@ import numpy as np
 
 @dataclass(frozen=True, eq=False)
 class Moments:
-    count: int
-    mean: np.ndarray  # (d,)
-    scatter: np.ndarray  # (d, d), centred: sum of (row - mean)(row - mean)^T
-    low: np.ndarray  # (d,), each column's smallest value (+inf while empty)
-    high: np.ndarray  # (d,), its largest (-inf while empty)
+    count: int | np.ndarray  # rows; for a stack, an integer array of its leading shape
+    mean: np.ndarray  # (..., d)
+    scatter: np.ndarray  # (..., d, d), centred: sum of (row - mean)(row - mean)^T
+    low: np.ndarray  # (..., d), each column's smallest value (+inf while empty)
+    high: np.ndarray  # (..., d), its largest (-inf while empty)
 
     @classmethod
     def empty(cls, width: int) -> "Moments":
@@ -42,25 +48,41 @@ class Moments:
         centred = rows - mean
         return cls(len(rows), mean, centred.T @ centred, *column_extremes(rows))
 
+    @classmethod
+    def stack(cls, parts) -> "Moments":
+        """The stack of ``parts`` (Moments, or stacks of one shape) along a new first axis."""
+        return cls(*(np.stack([getattr(p, name) for p in parts]) for name in _FIELDS))
+
+    def __getitem__(self, index) -> "Moments":
+        """Part of a stack: ``index`` applies to the leading axes (stack[u], stack[:, f], stack[units])."""
+        return Moments(*(getattr(self, name)[index] for name in _FIELDS))
+
     @property
     def width(self) -> int:
-        return len(self.mean)
+        return self.mean.shape[-1]
 
     @property
     def covariance(self) -> np.ndarray:
         """Sample covariance, 1/(n-1) scaling."""
-        return self.scatter / (self.count - 1)
+        return self.scatter / (np.asarray(self.count)[..., None, None] - 1)
 
     def merge(self, other: "Moments") -> "Moments":
-        if other.count == 0:
+        if np.ndim(other.count) == 0 and other.count == 0:
             return self
-        if self.count == 0:
+        if np.ndim(self.count) == 0 and self.count == 0:
             return other
         n = self.count + other.count
+        safe = np.maximum(n, 1)  # where a stack's sets are both empty, the update adds zeros
         delta = other.mean - self.mean
-        mean = self.mean + delta * (other.count / n)
-        scatter = self.scatter + other.scatter + np.outer(delta, delta) * (self.count * other.count / n)
+        mean = self.mean + delta * np.asarray(other.count / safe)[..., None]
+        spread = delta[..., :, None] * delta[..., None, :]
+        spread *= np.asarray(self.count * other.count / safe)[..., None, None]
+        scatter = self.scatter + other.scatter
+        scatter += spread  # in place: a stack's temporaries are megabytes
         return Moments(n, mean, scatter, np.minimum(self.low, other.low), np.maximum(self.high, other.high))
+
+
+_FIELDS = ("count", "mean", "scatter", "low", "high")
 
 
 # Rows viewed side by side for column_extremes: numpy reduces an (n, d) array
@@ -84,11 +106,22 @@ def column_extremes(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def merge_all(parts, width: int) -> Moments:
-    """Merge many parts pairwise as a balanced tree, so rounding grows with log(parts)."""
-    parts = [p for p in parts if p.count]
+    """Merge many parts pairwise as a balanced tree, so rounding grows with log(parts).
+    Parts without rows (in every set of a stack) are left out, unless all are."""
+    parts = [p for p in parts if np.any(p.count)] or list(parts)
     if not parts:
         return Moments.empty(width)
-    while len(parts) > 1:
-        merged = [a.merge(b) for a, b in zip(parts[::2], parts[1::2])]
-        parts = merged + ([parts[-1]] if len(parts) % 2 else [])
-    return parts[0]
+    return merge_along(Moments.stack(parts))
+
+
+def merge_along(stack: Moments) -> Moments:
+    """A stack merged along its first axis by the balanced tree of :func:`merge_all`:
+    (0, 1), (2, 3), ..., the last carried up when their number is odd; level by level,
+    each one merge over the whole stack."""
+    while len(stack.count) > 1:
+        pairs = len(stack.count) // 2
+        merged = stack[0 : 2 * pairs : 2].merge(stack[1 : 2 * pairs : 2])
+        if len(stack.count) % 2:
+            merged = Moments(*(np.concatenate([getattr(merged, name), getattr(stack, name)[-1:]]) for name in _FIELDS))
+        stack = merged
+    return stack[0]

@@ -77,6 +77,11 @@ class UnitMoments:
         return [Moments(int(self.count[u, f]), self.mean[u, f], self.scatter[u, f], self.low[u, f], self.high[u, f])
                 for f in range(self.folds)]
 
+    @property
+    def stacked(self) -> Moments:
+        """The same moments as one stack (see :class:`Moments`), leading axes (unit, fold)."""
+        return Moments(self.count, self.mean, self.scatter, self.low, self.high)
+
     def rows(self) -> dict[str, int]:
         """Rows per unit."""
         return dict(zip(self.units, self.count.sum(axis=1).tolist()))
