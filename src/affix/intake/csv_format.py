@@ -113,7 +113,9 @@ def raw_chunks(path, columns, chunk_rows, span=None, first_row=0, labels=None):
     label_position = None if labels is None else header.index(labels)
     used = sorted(set(positions))
     order = [used.index(p) for p in positions]
-    text = {} if label_position is None else {label_position: str}
+    # The unit ids as Python strings, each exactly as written: object, not pandas' str dtype, whose
+    # conversion to and from its own storage (pyarrow's, where installed) costs more than the parse of them.
+    text = {} if label_position is None else {label_position: object}
     start, end = span or (data_start(path), os.path.getsize(path))
     line = first_line = FIRST_DATA_LINE + first_row
     if start >= end:

@@ -153,14 +153,16 @@ class ChunkStream:
             present = np.ones(len(labels), bool)
             labels = labels.astype(str).astype(object)
         else:
-            present = ~pd.isna(labels)
+            present = None
+        codes, uniques = pd.factorize(labels)  # a missing id (None, NaN) is code -1
+        if present is None:
+            present = codes >= 0
         if not present.all():
             valid = present if valid is None else valid & present
-        codes, uniques = pd.factorize(labels[present] if not present.all() else labels)
         for code, label in enumerate(uniques):
             problem = unit_id_problem(str(label))
             if problem:
-                i = int(np.flatnonzero(present)[np.argmax(codes == code)])
+                i = int(np.argmax(codes == code))
                 raise DataError(problem, self.path, column=self.label_column,
                                 **self.place(self.first_row + self.rows_read + i))
         return labels, valid
