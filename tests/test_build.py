@@ -207,7 +207,7 @@ def test_a_hand_edited_file_is_never_replaced_silently(tmp_path):
     (out / "notes.txt").write_text("mine")
     done = build(tmp_path)
     assert done.returncode == 2
-    assert done.stderr.strip() == (f"affix: error: build/colour.c was edited by hand since the last build (its "
+    assert done.stderr.strip() == ("affix: error: build/colour.c was edited by hand since the last build (its "
                                    "SHA-256 differs from build.json); keep the change elsewhere, or replace it "
                                    "with --force")
     assert source.read_text() == edited

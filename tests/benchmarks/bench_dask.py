@@ -35,10 +35,8 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-from scale_data import COLUMNS, INPUTS, OUTPUTS, log_rows  # noqa: E402
+from scale_data import COLUMNS, INPUTS, OUTPUTS  # noqa: E402
 
 WRITE = """
 import sys
