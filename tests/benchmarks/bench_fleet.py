@@ -32,7 +32,7 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
-from bench_fit import run  # noqa: E402  (one child process, its wall time or its tree's peak PSS)
+from bench_fit import compile_affix, run  # noqa: E402  (run: one child process, its wall time or its tree's peak PSS)
 
 INPUTS = [f"g{j}" for j in range(8)]
 OUTPUTS = [f"f{i}" for i in range(6)]
@@ -101,6 +101,7 @@ def main() -> None:
     parser.add_argument("--units", type=int, default=1000)
     parser.add_argument("--rows", type=int, default=2000)
     args = parser.parse_args()
+    compile_affix()
     with tempfile.TemporaryDirectory(prefix="affix-bench-fleet-") as tmp:
         folder = Path(args.dir or tmp)
         folder.mkdir(parents=True, exist_ok=True)
