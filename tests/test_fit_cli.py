@@ -107,11 +107,13 @@ def children(pid) -> list[int]:
 
 
 def has_open(pid, path) -> bool:
-    for fd in os.listdir(f"/proc/{pid}/fd"):
+    """Whether the process or one of its children (the digest's, say) has the file open."""
+    for process in [pid, *children(pid)]:
         try:
-            if os.readlink(f"/proc/{pid}/fd/{fd}") == str(path):
-                return True
-        except FileNotFoundError:
+            for fd in os.listdir(f"/proc/{process}/fd"):
+                if os.readlink(f"/proc/{process}/fd/{fd}") == str(path):
+                    return True
+        except FileNotFoundError:  # the process or the descriptor went away meanwhile
             pass
     return False
 

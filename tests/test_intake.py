@@ -252,6 +252,25 @@ def test_a_csv_split_across_processes_gives_the_one_pass_result_to_the_last_bit(
 
 
 @pytest.mark.bad_input("fit")
+def test_a_csv_that_changes_while_split_across_processes_is_refused(tmp_path, monkeypatch):
+    from affix.fit import passes
+
+    path = write_lines(tmp_path / "log.csv", [f"{i},{i % 17}" for i in range(3000)])
+    cut = passes.partition
+
+    def cut_then_append(p, parts):
+        # The digest's process has started on the file; a logger appends before the workers read it.
+        pieces = cut(p, parts)
+        with open(p, "a") as f:
+            f.write("3000,7\n")
+        return pieces
+
+    monkeypatch.setattr(passes, "partition", cut_then_append)
+    with pytest.raises(DataError, match=rf"^{path}: the file changed while it was read"):
+        file_moments(path, ["a", "b"], 5, chunk_rows=100, drop_invalid=False, workers=2)
+
+
+@pytest.mark.bad_input("fit")
 def test_rows_are_numbered_across_the_whole_file_when_split(tmp_path):
     lines = [f"{i},{i % 17}" for i in range(3000)]
     lines[2500] = "2500,nan"
