@@ -271,6 +271,21 @@ def test_a_csv_that_changes_while_split_across_processes_is_refused(tmp_path, mo
 
 
 @pytest.mark.bad_input("fit")
+def test_a_read_failure_while_counting_a_parts_lines_is_one_error_naming_the_file(tmp_path, monkeypatch):
+    import errno
+
+    from affix.fit import blocks
+
+    def failing_count(path, part):  # the part's lines are counted in a forked process, which inherits this
+        raise OSError(errno.EIO, os.strerror(errno.EIO))
+
+    path = write_lines(tmp_path / "log.csv", [f"{i},{i % 17}" for i in range(3000)])
+    monkeypatch.setattr(blocks, "count_rows", failing_count)
+    with pytest.raises(DataError, match=rf"^{path}: cannot read the file \(Input/output error\)$"):
+        file_moments(path, ["a", "b"], 5, chunk_rows=100, drop_invalid=False, workers=2)
+
+
+@pytest.mark.bad_input("fit")
 def test_rows_are_numbered_across_the_whole_file_when_split(tmp_path):
     lines = [f"{i},{i % 17}" for i in range(3000)]
     lines[2500] = "2500,nan"

@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 from threadpoolctl import threadpool_limits
 
 from affix.errors import AffixError, DataError
-from affix.intake import read_chunks
+from affix.intake import count_rows, read_chunks
 from affix.intake.digest import FileDigest, changed, stamp
 from affix.intake.parts import Part
 from affix.intake.sources import data_hash
@@ -129,6 +129,18 @@ def file_digest(block: Block):
         sha256 = FileDigest(block.path).hexdigest()
         _check_unchanged(block)
         return sha256
+    except AffixError as exc:
+        return _named(exc, block)
+
+
+def rows_in(block: Block):
+    """The data rows in the block's part of a CSV (its lines: what the blocks after it need
+    to know where they start), or the error that prevented counting them (an AffixError as a value)."""
+    try:
+        _check_unchanged(block)
+        return count_rows(block.path, block.part)
+    except OSError as exc:
+        return _named(DataError(f"cannot read the file ({exc.strerror})", block.path), block)
     except AffixError as exc:
         return _named(exc, block)
 

@@ -10,6 +10,7 @@ checked to the end before the next, and the first error ends the pass.
 """
 from __future__ import annotations
 
+import itertools
 import os
 import signal
 import traceback
@@ -17,9 +18,9 @@ from contextlib import contextmanager
 from dataclasses import replace
 
 from affix.errors import AffixError
-from affix.fit.blocks import (Pass, Result, block_outcome, blocks_of, file_digest, finish_file, join_outcomes,
-                              merge_results, outcome_of, stream_run, tree)
-from affix.intake import check_columns, partition, splittable
+from affix.fit.blocks import (Outcome, Pass, Result, block_outcome, blocks_of, file_digest, finish_file,
+                              join_outcomes, merge_results, outcome_of, rows_in, stream_run, tree)
+from affix.intake import check_columns, partition, preload, splittable
 from affix.statistics import finish
 
 PARALLEL_MIN_BYTES = 32 << 20  # below this, starting processes costs more than it saves
@@ -69,18 +70,27 @@ class LocalEngine:
         if workers == 1 or not splittable(path):
             (block,) = blocks_of(position, path, None)
             return finish_file(block_outcome(block, settings), None, path, settings)
-        # The digest runs in a process of its own, on another CPU, while
-        # partition() loads pandas for the workers.  In a thread of this
-        # process it would wait for the GIL through most of that import, and
-        # the workers would start later by most of the digest's time (0.15 s
-        # of a 0.23 s digest of 316 MB, measured here).  Every block bears the
-        # file's stamp from before the digest starts, and each worker checks it
-        # before and after its reads, so the digest and the statistics are of
-        # one version of the file.
+        # While this process loads pandas for the workers, the digest runs in
+        # a process of its own (in a thread here it would wait for the GIL
+        # through most of that import: 0.15 s of a 0.23 s digest of 316 MB,
+        # measured here), and each part but the last counts its lines in
+        # another, so that no worker first counts the lines before its part
+        # (the last one's would be nearly the whole file).  Every block bears
+        # the file's stamp from before the digest starts, and each reader
+        # checks it before and after its reads, so the digest, the counts and
+        # the statistics are of one version of the file.
         (whole,) = blocks_of(position, path, None)
         with forked(file_digest, [(whole,)]) as digest:
             blocks = [replace(whole, part=part) for part in partition(path, workers)]
-            outcome = tree(in_workers(block_outcome, [(block, settings) for block in blocks]), join_outcomes)
+            with forked(rows_in, [(block,) for block in blocks[:-1]]) as counted:
+                preload(path)
+                counts = counted()
+            failed = [count for count in counts if isinstance(count, AffixError)]
+            if failed:
+                return finish_file(Outcome(error=failed[0]), None, path, settings)
+            first_rows = itertools.accumulate(counts, initial=0)  # a part starts after the rows of those before it
+            jobs = [(block, settings, first_row) for block, first_row in zip(blocks, first_rows)]
+            outcome = tree(in_workers(block_outcome, jobs), join_outcomes)
             (sha256,) = digest()
         return finish_file(outcome, sha256, path, settings)
 

@@ -29,7 +29,7 @@ from affix.intake.parts import Part
 from affix.intake.stream import ChunkStream
 
 __all__ = ["ChunkStream", "Part", "check_columns", "column_names", "count_rows", "from_array", "partition",
-           "read_chunks", "read_files", "splittable"]
+           "preload", "read_chunks", "read_files", "splittable"]
 
 
 def column_names(path) -> list[str]:
@@ -109,10 +109,14 @@ def partition(path, parts: int) -> list[Part]:
     ranges of whole lines of a CSV, row ranges of a .npy, runs of row groups
     of a Parquet file; a .npz is one part."""
     path = _existing(path)
-    fmt = _format(path)
-    if fmt is csv_format:
-        import pandas  # noqa: F401 -- loaded once here, so worker processes forked next share it
-    return fmt.partition(path, max(1, parts))
+    return _format(path).partition(path, max(1, parts))
+
+
+def preload(path) -> None:
+    """Load what reading the file's format takes (pandas, for a CSV) into this
+    process, so that processes forked next share it instead of each loading it."""
+    if _format(_existing(path)) is csv_format:
+        import pandas  # noqa: F401
 
 
 def count_rows(path, part: Part) -> int:
