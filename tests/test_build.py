@@ -13,6 +13,7 @@ import json
 import re
 import shutil
 
+import numpy as np
 import pytest
 
 import colour_sensor
@@ -249,3 +250,22 @@ def test_the_target_and_the_input_type_come_from_the_project(tmp_path):
     assert plan["target"] == "cortex-m4" and plan["input_ctype"] == "int32_t"
     assert Interface.load(tmp_path / "colour.interface.json").input_ctype == "int32_t"
     assert "void colour_estimate(const int32_t y[COLOUR_N_INPUTS]" in (tmp_path / "build" / "colour.h").read_text()
+
+
+def test_a_npy_log_with_numbered_columns_builds_into_code(tmp_path):
+    # A .npy file's columns are named "0", "1", ...: they become est_in_0 and
+    # EST_lsb_3 in C and strings in MicroPython, and the build verifies both.
+    require("gcc")
+    rng = np.random.default_rng(21)
+    counts = rng.integers(0, 4096, size=(3000, 3))
+    physical = counts @ np.array([[0.02, -0.01, 0.005], [0.001, 0.03, -0.002]]).T + rng.normal(0, 0.01, (3000, 2))
+    np.save(tmp_path / "rig.npy", np.column_stack([counts, physical]))
+    made = run_affix("init", "rig.npy", "--inputs", "0,1,2", "--outputs", "3,4", "--range", "0:4095", "--name", "rig",
+                     "--vectors", "20000", cwd=tmp_path)
+    assert made.returncode == 0, made.stderr
+    done = build(tmp_path)
+    assert done.returncode == 0, done.stderr
+    header = (tmp_path / "build" / "rig.h").read_text()
+    assert "rig_in_0 = 0," in header and "#define RIG_lsb_3 " in header
+    assert 'INPUTS = ("0", "1", "2")' in (tmp_path / "build" / "rig.py").read_text()
+    assert "PASS" in done.stdout

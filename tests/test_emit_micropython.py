@@ -94,6 +94,18 @@ def test_runtime_matches_reference_bit_for_bit(key, tmp_path):
     assert ("estimate_into_viper" in path.read_text()) == expect_viper
 
 
+def test_a_wide_estimator_runs_in_the_default_heap(tmp_path):
+    # 48 inputs and 40 outputs: the verification driver's buffers must stay
+    # within the unix port's default heap however wide the vectors are (a
+    # fixed 4096 vectors per read needed 1.5 MB per buffer here, and the run
+    # failed with MemoryError before evaluating anything).
+    require("micropython")
+    plan = random_plan(seed=11, n_inputs=48, n_outputs=40, ranges="uint16", fill=0.4)
+    y = np.random.default_rng(11).integers(0, 65535, size=(5000, 48), endpoint=True)
+    got = run_micropython(emit(plan, tmp_path), y, variant="plain")
+    np.testing.assert_array_equal(got, plan.integer_estimator().evaluate(y))
+
+
 def test_saturation_and_clamping_are_exercised():
     # Guards the plan choices above: the saturating plan reaches the int16
     # limits and the beyond-box vectors leave the box, so both code paths run.

@@ -68,6 +68,18 @@ def test_plain_names_pass():
         assert check_identifier(name, "--name") == name
 
 
+def test_input_and_output_names_may_start_with_a_digit_but_not_the_estimators():
+    # A .npy file's columns are named "0", "1", ...; a column's name only ever
+    # follows an infix (est_in_0, EST_lsb_12), so it stays an identifier there
+    # (C99 §6.4.2.1), while the estimator's name starts every identifier.
+    check_names("est", ["0", "1", "2b"], ["12"])
+    with pytest.raises(UsageError, match="not a plain identifier"):
+        check_names("9est", ["y"], ["x"])
+    for bad in ("_0", "0-1", "0 1", ""):
+        with pytest.raises(UsageError, match="not a plain identifier"):
+            check_names("est", [bad], ["x"])
+
+
 def test_length_limits_follow_c99_5_2_4_1():
     # External identifiers keep 31 significant characters: "NAME_selftest" must fit.
     check_names("a" * 22, ["y"], ["x"])

@@ -20,6 +20,9 @@ from affix.errors import UsageError
 # option (C99 §6.4.2.1), and a leading underscore is reserved at file scope
 # (C99 §7.1.3), so neither is worth the portability risk.
 _IDENTIFIER = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+# An input's or output's name only ever follows an infix (NAME_in_0, below),
+# so it may start with a digit, as the columns of a .npy file are named.
+_SUFFIX = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_]*$")
 
 # C99 §6.4.1 plus the C11 additions (all underscore-prefixed, refused anyway).
 C_KEYWORDS = frozenset(
@@ -90,16 +93,16 @@ _EXTERNAL_SUFFIX = len("_selftest")
 _INFIX_LENGTH = 1 + max(len(infix) for infix in INFIXES)
 
 
-def check_identifier(name, what: str, max_length: int = INTERNAL_LENGTH) -> str:
-    """Return ``name`` if it is safe as an identifier in C99, C++ and (Micro)Python.
+def check_identifier(name, what: str, max_length: int = INTERNAL_LENGTH, suffix: bool = False) -> str:
+    """Return ``name`` if it is safe as an identifier in C99, C++ and (Micro)Python,
+    or with ``suffix`` as the end of one, after an infix (it may then start with a digit).
 
     ``what`` says where the name came from (an option or a column) and opens
     the error message.
     """
-    if not isinstance(name, str) or not _IDENTIFIER.match(name):
-        raise UsageError(
-            f"{_shown(name)} is not a plain identifier (ASCII letter first, then letters, digits or '_')", what
-        )
+    if not isinstance(name, str) or not (_SUFFIX if suffix else _IDENTIFIER).match(name):
+        first = "ASCII letter or digit" if suffix else "ASCII letter"
+        raise UsageError(f"{_shown(name)} is not a plain identifier ({first} first, then letters, digits or '_')", what)
     reason = _reserved_by(name)
     if reason:
         raise UsageError(f"'{name}' is {reason}; choose another name", what)
@@ -117,7 +120,7 @@ def check_names(name: str, inputs, outputs) -> None:
         seen = set()
         for column in names:
             what = f"{kind} name {_shown(column)}"
-            check_identifier(column, what, INTERNAL_LENGTH - len(name) - _INFIX_LENGTH)
+            check_identifier(column, what, INTERNAL_LENGTH - len(name) - _INFIX_LENGTH, suffix=True)
             if column in seen:
                 raise UsageError(f"appears twice among the {kind}s", what)
             seen.add(column)

@@ -33,7 +33,9 @@ HOW_SEEN = {
     "heap_lock": "MemoryError with micropython.heap_lock()",
 }
 _MODULE = "estimator_under_test"  # fixed, so no estimator name can shadow the driver's imports
-_CHUNK = 4096  # vectors per read: keeps the driver's buffers far below the default 2 MiB heap
+# Bytes per buffer of the driver (its inputs and its outputs, each built from a bytes
+# object of the same size): far below the unix port's default 2 MiB heap at any width.
+_CHUNK_BYTES = 1 << 17
 _TIMEOUT = 600
 _INPUT_TYPECODES = ("b", "B", "h", "H", "i", "I", "l", "L")  # array module integer types (not q: long ints)
 
@@ -90,7 +92,7 @@ def run_micropython(py_file, vectors, *, variant: str = "plain", check_alloc: bo
             check_alloc=check_alloc,
             input_typecode=input_typecode,
             n_inputs=vectors.shape[1],
-            chunk=_CHUNK,
+            chunk_bytes=_CHUNK_BYTES,
             records=records is not None,
         )
         (tmp / "driver.py").write_text(driver)
