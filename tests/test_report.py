@@ -403,6 +403,22 @@ def test_trend_shows_a_missing_square_term(tmp_path):
     assert curve[0] > 0.5 and curve[len(curve) // 2] < -0.2  # high at the ends, low in the middle
 
 
+def test_a_wide_model_shows_the_residual_columns_of_its_likeliest_missing_terms():
+    # 20 inputs: the matrix keeps the 8 along which some output's trend share is largest, in input order.
+    from affix.report.content import RESIDUAL_COLUMNS, residual_columns
+
+    rng = np.random.default_rng(3)
+    shares = rng.uniform(0, 1, size=(3, 20))
+    shares[1, [2, 17]] = [40.0, 25.0]  # output 1 bends along inputs 2 and 17
+    trends = [[(np.empty(0), np.empty(0), float(share)) for share in row] for row in shares]
+    chosen = residual_columns(trends)
+    largest = shares.max(axis=0)
+    assert RESIDUAL_COLUMNS == 8 and len(chosen) == 8 and chosen == sorted(chosen)
+    assert {2, 17} <= set(chosen)
+    assert largest[chosen].min() >= np.delete(largest, chosen).max()
+    assert residual_columns([row[:5] for row in trends]) == [0, 1, 2, 3, 4]  # few inputs: all of them
+
+
 def test_a_staged_build_reports_before_its_record(build, tmp_path):
     """How a build can call it: the folder staged elsewhere, build.json not written yet."""
     from affix.report import render_report

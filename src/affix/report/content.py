@@ -21,6 +21,9 @@ from affix.report.scan import DataScan, InputCoverage
 TREND_POINTS = 24  # groups of about equal row count along each input
 COVERAGE_BINS = 64  # display bins across the declared box (the scan keeps finer ones)
 RESIDUAL_POINTS = 420_000  # drawn over all residual panels together
+# Inputs the residual matrix has a column for: beyond eight the panels are too
+# small to read and the page grows by megabytes (48 inputs made a 7 MB page).
+RESIDUAL_COLUMNS = 8
 
 
 @dataclass(frozen=True)
@@ -222,6 +225,17 @@ def headroom_bits(plan) -> tuple[np.ndarray, np.ndarray]:
     headroom = np.array(plan.accumulator_headroom_bits if plan.accumulator_headroom_bits is not None else
                         [plan.acc_bits - 1 - math.log2(max(b, 1)) for b in plan.integer_estimator().accumulator_bounds()])
     return plan.acc_bits - 1 - headroom, headroom
+
+
+def residual_columns(trends) -> list[int]:
+    """The inputs the residual matrix shows, in input order: all of them up to RESIDUAL_COLUMNS, else those
+    along which some output's trend carries the largest share of its residual mean square (the likeliest
+    missing terms).  ``trends[i][j]`` as :func:`trend` returns it for output i along input j."""
+    inputs = len(trends[0]) if trends else 0
+    if inputs <= RESIDUAL_COLUMNS:
+        return list(range(inputs))
+    largest = [max(output[j][2] for output in trends) for j in range(inputs)]
+    return sorted(sorted(range(inputs), key=lambda j: -largest[j])[:RESIDUAL_COLUMNS])
 
 
 def points_per_panel(panels: int, sampled: int) -> int:

@@ -191,13 +191,19 @@ def residual_section(folder: BuildFolder, scan: DataScan) -> dict:
     if not scan.has_outputs:
         return {"image": None, "absent": "The calibration data hold no output columns, so there are no residuals."}
     outputs, inputs = folder.model.outputs, folder.model.inputs
-    shown = content.points_per_panel(len(outputs) * len(inputs), len(scan.sample_inputs))
-    note = content.sample_note(scan, shown)
     trends = [[content.trend(panel, i) for panel in scan.coverage] for i in range(len(outputs))]
-    image = plots.residuals(list(outputs), content.output_units(folder), list(inputs), content.input_units(folder),
-                            scan.sample_inputs[:shown], scan.sample_residuals[:shown], trends, note)
+    columns = content.residual_columns(trends)
+    shown = content.points_per_panel(len(outputs) * len(columns), len(scan.sample_inputs))
+    note = content.sample_note(scan, shown)
+    if len(columns) < len(inputs):
+        note += (f" Columns: the {len(columns)} of {len(inputs)} inputs along which some output's trend carries the "
+                 "largest share of its residual mean square.")
+    units = content.input_units(folder)
+    image = plots.residuals(list(outputs), content.output_units(folder), [inputs[j] for j in columns],
+                            [units[j] for j in columns], scan.sample_inputs[:shown, columns],
+                            scan.sample_residuals[:shown], [[row[j] for j in columns] for row in trends], note)
     return {"image": image, "absent": None, "points": Number(shown, "data:sample/points"),
-            "rows": Number(scan.rows, "data:rows")}
+            "rows": Number(scan.rows, "data:rows"), "columns": len(columns), "inputs": len(inputs)}
 
 
 def coverage_section(folder: BuildFolder, scan: DataScan) -> dict:
