@@ -69,6 +69,10 @@ def test_init_never_overwrites_a_project_file(tmp_path):
         (("--range", "cyan=0:10"), "--range: unknown input 'cyan'"),
         (("--name", "class"), "'class' is a C++ keyword"),
         (("--budget", "X=0.1", "--budget-rms", "1"), "give either per-output budgets or an RMS growth"),
+        (("--outputs", "X,Yy"), "no column 'Yy'"),
+        (("--budget", "0.1", "--unit-column", "serial"), "no column 'serial'"),
+        (("--unit-column", "red"), "--budget: a fleet needs a budget"),
+        (("--tolerance", "0.1"), "would refuse: outputs[0].tolerance: a tolerance is a fleet unit's acceptance limit"),
     ],
 )
 def test_bad_options_write_nothing(tmp_path, arguments, expected):
@@ -76,6 +80,7 @@ def test_bad_options_write_nothing(tmp_path, arguments, expected):
     done = run_affix("init", "colour.csv", *COLUMNS, *arguments, cwd=tmp_path)
     assert done.returncode == 2 and expected in done.stderr, done.stderr
     assert len(done.stderr.splitlines()) == 1
+    assert "affix.toml:" not in done.stderr  # no line of a file that was never written
     assert not (tmp_path / "affix.toml").exists()
 
 

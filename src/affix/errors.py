@@ -127,6 +127,7 @@ class FileFormatError(AffixError):
         where = None if path is None else (str(path) if line is None else f"{path}:{line}")
         super().__init__(f"{where}: {message}" if where is not None else message)
         self.path, self.line = path, line
+        self.reason = message  # without the place, for a caller that locates the fault otherwise
 
 
 class NoConfigurationError(UsageError):

@@ -13,7 +13,7 @@ from pathlib import Path
 from affix import files
 from affix.emit.templates import render
 from affix.emit.names import check_units
-from affix.errors import UsageError
+from affix.errors import FileFormatError, UsageError, parameter
 from affix.project.file import parse_project
 from affix.quantize.box import resolve_per_name
 
@@ -57,6 +57,9 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
         rows.append({"name": name_j, "range": declared, "seen": seen, "from_data": not given, "lsb": lsb,
                      "unit": units.get(name_j)})
     budgets = resolve_per_name(outputs, options["budget"], "budget", kind="budget")
+    if unit_column is not None and options["budget_rms"] is None and all(b is None for b in budgets):
+        raise UsageError("a fleet needs a budget, each unit's pass/fail criterion: give each output one, or an "
+                         f"RMS growth with {parameter('budget_rms')}", "budget")
     lsbs = resolve_per_name(outputs, options["output_lsb"], "output_lsb", kind="lsb")
     tolerances = resolve_per_name(outputs, tolerance, "tolerance", kind="tolerance")
     text = render(
@@ -88,7 +91,10 @@ def starter_text(project_path, *, name, files_written, inputs, outputs, extremes
         skip_bad_units=skip_bad_units,
         flash_address=None if flash_address is None else f"0x{flash_address:08X}",
     )
-    parse_project(text, project_path)
+    try:
+        parse_project(text, project_path)
+    except FileFormatError as exc:  # the file is not written yet: its line numbers would point at nothing
+        raise UsageError(f"the options make a project file 'affix build' would refuse: {exc.reason}") from None
     return text
 
 

@@ -9,6 +9,7 @@ from pathlib import Path
 from affix.errors import UsageError
 from affix.fit.engines import check_named
 from affix.interface import COEFFICIENT_SOURCES
+from affix.intake import check_columns
 from affix.intake.sources import data_files
 from affix.workflow.emit_command import add_emit_options
 from affix.workflow.fit_command import add_fit_options, column_names
@@ -73,6 +74,8 @@ def run(args) -> int:
     check_named(args.engine, args.scheduler)
     inputs, outputs = column_names(args.inputs, "--inputs"), column_names(args.outputs, "--outputs")
     found, written = _data(args.data, project.parent)
+    for path in found:  # every column the build reads, so a misspelt output or unit column is caught here
+        check_columns(path, inputs + outputs + ([args.unit_column] if args.unit_column is not None else []))
     name = args.name or _default_name(found[0])
     check_names(name, inputs, outputs)
     units = named_values(args.unit, "units", lambda text, _parameter: text)
