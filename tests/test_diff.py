@@ -9,6 +9,7 @@ integer arrays.
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 import pytest
@@ -104,3 +105,11 @@ def test_an_interface_change_is_listed_apart_and_exits_5(two_runs):
     assert text.returncode == 5 and "interface CHANGED (2)" in text.stdout
     mixed = run_affix("diff", "run1.model.json", "run2.plan.json", cwd=folder)
     assert mixed.returncode == 2 and "compare like with like: a model against a plan" in mixed.stderr
+
+
+def test_a_model_against_itself_shows_no_change_and_no_signed_zero(two_runs):
+    folder, _, _ = two_runs
+    done = run_affix("diff", "run1.model.json", "run1.model.json", cwd=folder)
+    assert done.returncode == 0, done.stderr
+    assert "+0.00%" in done.stdout and "-0.00%" not in done.stdout  # a change that rounds to nothing has no sign
+    assert not re.search(r"-0\b(?!\.)", done.stdout)  # nor a change of exactly zero

@@ -238,18 +238,20 @@ def text(result: dict, largest: int = 3) -> str:
         for name, i in result["inputs"].items():
             span = f", span {_pair(i['span'])}" if "span" in i else ""
             mean = i["mean"]
-            lines.append(f"  {name}: mean {mean['old']:.6g} -> {mean['new']:.6g} ({mean['change']:+.4g}){span}")
+            lines.append(f"  {name}: mean {mean['old']:.6g} -> {mean['new']:.6g} ({_signed(mean['change'])}){span}")
     return "\n".join(lines)
 
 
 def _signed(value) -> str:
     if value is None:
         return "-"
-    return f"{value:+d}" if isinstance(value, int) else f"{value:+.4g}"
+    return f"{value:+d}" if isinstance(value, int) else f"{value + 0.0:+.4g}"  # + 0.0: -0.0 becomes 0.0
 
 
 def _percent(value) -> str:
-    return "" if value is None else f" ({value:+.2%})"
+    if value is None:
+        return ""
+    return f" ({abs(value) if round(value, 4) == 0 else value:+.2%})"  # a change that rounds to nothing has no sign
 
 
 def _pair(figure: dict) -> str:
