@@ -4,9 +4,10 @@ Parsing text is what a fit spends its time on, so a large CSV is cut into
 byte ranges of whole lines, one per CPU, and each worker process reduces its
 range to a run of per-fold moments (affix.fit.blocks).  Rows keep their
 places in the file, so the result is the same to the last bit as one
-sequential pass.  The digest of the whole file runs in a process of its own,
-started before the workers are prepared.  Files are read one after the other, each
-checked to the end before the next, and the first error ends the pass.
+sequential pass.  The digest of the whole file and the line counts that
+place each part run in processes of their own while the workers are
+prepared.  Files are read one after the other, each checked to the end
+before the next, and the first error ends the pass.
 """
 from __future__ import annotations
 

@@ -203,7 +203,7 @@ def residual_section(folder: BuildFolder, scan: DataScan) -> dict:
                             [units[j] for j in columns], scan.sample_inputs[:shown, columns],
                             scan.sample_residuals[:shown], [[row[j] for j in columns] for row in trends], note)
     return {"image": image, "absent": None, "points": Number(shown, "data:sample/points"),
-            "rows": Number(scan.rows, "data:rows"), "columns": len(columns), "inputs": len(inputs)}
+            "rows": Number(scan.rows, "data:rows"), "some_inputs": len(columns) < len(inputs)}
 
 
 def coverage_section(folder: BuildFolder, scan: DataScan) -> dict:
