@@ -83,6 +83,8 @@ FIT_CASES = {
     "missing file": ("absent.csv", None, [], r"absent.csv: no such file"),
     "missing column": ("log.csv", edited({}), ["--inputs", "b1,b9"], r"no column 'b9' \(available: b1, b2, b3, Fx, Fz\)"),
     "missing column among thousands": ("wide.csv", csv_bytes([",".join(f"c{j}" for j in range(5000)), ",".join("1" * 5000)]), [], r"no column 'b1' \(available: c0, c1, .*, c19, \.\.\. \(5000 columns\)\)$"),
+    "semicolon-separated file": ("semi.csv", csv_bytes(["b1;b2;b3;Fx;Fz"] + ["1;2;3;4;5"] * 9), [], r"no column 'b1' \(available: b1;b2;b3;Fx;Fz\); the header is one column holding ';': affix reads values separated by commas$"),
+    "tab-separated file": ("tabs.csv", csv_bytes(["b1\tb2\tb3\tFx\tFz"] + ["1\t2\t3\t4\t5"] * 9), [], r"the header is one column holding tabs: affix reads values separated by commas$"),
     "non-numeric cell": ("log.csv", edited({8: "1,2,x3,4,5"}), [], r"log.csv, line 8, column 'b3': not a number: 'x3'"),
     "nan and inf": ("log.csv", edited({5: "1,2,3,nan,5", 9: "1,2,inf,4,5"}), [], r"log.csv, line 5: 2 row\(s\) hold NaN, infinite or empty values, the first in column 'Fx'; .*--drop-invalid"),
     "too few rows": ("short.csv", csv_bytes([HEADER, "1,2,3,4,5", "2,3,1,5,6", "3,1,2,6,7"]), [], r"only 3 usable row\(s\); fitting 3 input\(s\) needs at least 5"),

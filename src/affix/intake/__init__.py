@@ -79,9 +79,18 @@ def check_columns(path, columns) -> None:
     for name in columns:
         count = available.count(name)
         if not count:
-            raise DataError(f"no column '{name}' (available: {_listing(available)})", path)
+            raise DataError(f"no column '{name}' (available: {_listing(available)}){_separator_hint(available)}", path)
         if count > 1:
             raise DataError(f"the header names column '{name}' {count} times, so it is ambiguous", path)
+
+
+def _separator_hint(available) -> str:
+    """A note for a header read as one column that holds another common separator (a CSV written with ';')."""
+    if len(available) == 1:
+        for separator, called in ((";", "';'"), ("\t", "tabs"), ("|", "'|'")):
+            if separator in available[0]:
+                return f"; the header is one column holding {called}: affix reads values separated by commas"
+    return ""
 
 
 def read_files(entries, columns, *, drop_invalid: bool = False, labels: str | None = None):
