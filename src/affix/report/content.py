@@ -22,7 +22,7 @@ TREND_POINTS = 24  # groups of about equal row count along each input
 COVERAGE_BINS = 64  # display bins across the declared box (the scan keeps finer ones)
 RESIDUAL_POINTS = 420_000  # drawn over all residual panels together
 # Inputs the residual matrix has a column for: beyond eight the panels are too
-# small to read and the page grows by megabytes (48 inputs made a 7 MB page).
+# small to read, and every column adds a panel per output to the page.
 RESIDUAL_COLUMNS = 8
 
 
