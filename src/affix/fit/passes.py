@@ -73,13 +73,12 @@ class LocalEngine:
             return finish_file(block_outcome(block, settings), None, path, settings)
         # While this process loads pandas for the workers, the digest runs in
         # a process of its own (in a thread here it would wait for the GIL
-        # through most of that import: 0.15 s of a 0.23 s digest of 316 MB,
-        # measured here), and each part but the last counts its lines in
-        # another, so that no worker first counts the lines before its part
-        # (the last one's would be nearly the whole file).  Every block bears
-        # the file's stamp from before the digest starts, and each reader
-        # checks it before and after its reads, so the digest, the counts and
-        # the statistics are of one version of the file.
+        # through most of that import), and each part but the last counts its
+        # lines in another, so that no worker first counts the lines before
+        # its part (the last one's would be nearly the whole file).  Every
+        # block bears the file's stamp from before the digest starts, and each
+        # reader checks it before and after its reads, so the digest, the
+        # counts and the statistics are of one version of the file.
         (whole,) = blocks_of(position, path, None)
         with forked(file_digest, [(whole,)]) as digest:
             blocks = [replace(whole, part=part) for part in partition(path, workers)]
