@@ -4,10 +4,12 @@ from __future__ import annotations
 import json
 import os
 import re
+import shutil
 import signal
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -161,6 +163,25 @@ def test_ctrl_c_during_a_parallel_fit_ends_everything_in_one_line(tmp_path_facto
     assert not group_alive(cli.pid), "a worker process outlived the command"
     assert took <= 2.0  # the bound for ending every worker
     assert list(folder.iterdir()) == []  # no model, no temporary file
+
+
+@pytest.mark.parametrize("delay", [0.02, 0.05, 0.08])
+def test_ctrl_c_while_python_loads_affix_is_the_same_one_line(tmp_path, delay):
+    # The installed command (pip's script beside this Python) imports its entry point before the
+    # package and NumPy, which take a tenth of a second or more to load: a Ctrl-C then must not end
+    # in Python's traceback.  Sent this early, it may even come before Python handles SIGINT at all,
+    # which ends the process by the signal, silently.
+    command = shutil.which("affix", path=str(Path(sys.executable).parent))
+    assert command, "the affix command is installed beside this Python (pip install -e .)"
+    data = good_csv(tmp_path, rows=90)
+    cli = subprocess.Popen([command, "fit", data, "--inputs", "b1,b2,b3", "--outputs", "Fx,Fz", "--out",
+                            tmp_path / "model.json"], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                           start_new_session=True)
+    time.sleep(delay)
+    os.killpg(cli.pid, signal.SIGINT)
+    out, err = cli.communicate(timeout=30)
+    assert (cli.returncode, err) in ((130, "affix: interrupted\n"), (-signal.SIGINT, "")), err
+    assert out == "" and not (tmp_path / "model.json").exists()
 
 
 def test_several_files_fit_as_one_data_set_and_the_inputs_seen_are_shown(tmp_path):
