@@ -98,9 +98,12 @@ def blocks_of(position: int, path, parts) -> list[Block]:
     return [Block(position, os.path.abspath(path), str(path), part, now) for part in (parts or [None])]
 
 
-def block_outcome(block: Block, settings: Pass, first_row: int | None = None) -> Outcome:
+def block_outcome(block: Block, settings: Pass, first_row=None) -> Outcome:
     """The map: one block's rows reduced to a Run; ``first_row`` the rows of the file
-    before the block where its part does not know it (counted beforehand)."""
+    before the block where its part does not know it (counted beforehand: :func:`rows_in`,
+    :func:`rows_after`), or the error that prevented counting them."""
+    if isinstance(first_row, AffixError):
+        return Outcome(error=first_row)
     try:
         _check_unchanged(block)
         stream = read_chunks(block.path, settings.columns, chunk_rows=settings.chunk_rows, drop_invalid=True,
@@ -143,6 +146,15 @@ def rows_in(block: Block):
         return _named(DataError(f"cannot read the file ({exc.strerror})", block.path), block)
     except AffixError as exc:
         return _named(exc, block)
+
+
+def rows_after(before, rows):
+    """The rows before the next block: those ``before`` this one plus its own ``rows``
+    (:func:`rows_in`), or the first error of the two."""
+    for value in (before, rows):
+        if isinstance(value, AffixError):
+            return value
+    return before + rows
 
 
 def join_outcomes(left: Outcome, right: Outcome) -> Outcome:

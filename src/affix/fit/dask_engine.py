@@ -23,7 +23,6 @@ from __future__ import annotations
 
 import logging
 import math
-import operator
 import os
 import signal
 import threading
@@ -32,9 +31,9 @@ from dataclasses import replace
 
 from affix.errors import ToolError, UsageError, parameter
 from affix.fit.blocks import (Pass, block_outcome, blocks_of, file_digest, finish_file, join_outcomes,
-                              merge_results, outcome_of, tree)
+                              merge_results, outcome_of, rows_after, rows_in, tree)
 from affix.fit.passes import usable_cpus
-from affix.intake import check_columns, count_rows, partition
+from affix.intake import check_columns, partition
 from affix.intake.digest import changed, stamp
 from affix.progress import no_bar
 
@@ -89,8 +88,8 @@ class DaskEngine:
             for index, block in enumerate(blocks):
                 counted = None
                 if block.part.first_row is None:  # a CSV's lines: the block before counts its own
-                    lines = client.submit(count_rows, blocks[index - 1].path, blocks[index - 1].part, pure=False)
-                    first_row = counted = client.submit(operator.add, first_row, lines, pure=False)
+                    lines = client.submit(rows_in, blocks[index - 1], pure=False)
+                    first_row = counted = client.submit(rows_after, first_row, lines, pure=False)
                 mine.append(client.submit(block_outcome, block, settings, counted, pure=False))
             outcomes += mine
             joined = tree(mine, lambda a, b: client.submit(join_outcomes, a, b, pure=False))

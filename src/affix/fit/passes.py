@@ -19,8 +19,8 @@ from contextlib import contextmanager
 from dataclasses import replace
 
 from affix.errors import AffixError
-from affix.fit.blocks import (Outcome, Pass, Result, block_outcome, blocks_of, file_digest, finish_file,
-                              join_outcomes, merge_results, outcome_of, rows_in, stream_run, tree)
+from affix.fit.blocks import (Pass, Result, block_outcome, blocks_of, file_digest, finish_file, join_outcomes,
+                              merge_results, outcome_of, rows_after, rows_in, stream_run, tree)
 from affix.intake import check_columns, partition, preload, splittable
 from affix.statistics import finish
 
@@ -85,10 +85,7 @@ class LocalEngine:
             with forked(rows_in, [(block,) for block in blocks[:-1]]) as counted:
                 preload(path)
                 counts = counted()
-            failed = [count for count in counts if isinstance(count, AffixError)]
-            if failed:
-                return finish_file(Outcome(error=failed[0]), None, path, settings)
-            first_rows = itertools.accumulate(counts, initial=0)  # a part starts after the rows of those before it
+            first_rows = itertools.accumulate(counts, rows_after, initial=0)
             jobs = [(block, settings, first_row) for block, first_row in zip(blocks, first_rows)]
             outcome = tree(in_workers(block_outcome, jobs), join_outcomes)
             (sha256,) = digest()
